@@ -1,0 +1,1 @@
+"""Data tables shipped with titlematch; read them through ``titlematch.lexicon``."""

@@ -1,0 +1,116 @@
+"""Saved artefacts (dictionaries, confidence models, register indexes) in a safe, versioned layout.
+
+An artefact is a directory of Parquet tables and ``.npy`` arrays plus ``manifest.json``
+with the kind, format version, library version, build metadata and a SHA-256 for every
+file. Loading verifies all of it and reads only data (``allow_pickle=False``), so a
+crafted artefact can make loading fail but cannot run code.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+
+FORMAT_VERSION = 1
+MANIFEST = "manifest.json"
+
+
+class ArtefactError(ValueError):
+    """A saved artefact is missing, of another kind or version, or was altered since it was saved."""
+
+
+@dataclass
+class Artefact:
+    kind: str
+    tables: dict[str, pd.DataFrame]
+    arrays: dict[str, np.ndarray]
+    meta: dict
+    manifest: dict = field(default_factory=dict)
+
+
+def _sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.DataFrame], *,
+                  arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> dict:
+    """Write an artefact to ``directory`` atomically (built beside it, then renamed into place)."""
+    directory = Path(directory)
+    directory.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=f".{directory.name}.", dir=directory.parent))
+    try:
+        files = {}
+        for name, table in tables.items():
+            target = staging / f"{name}.parquet"
+            table.reset_index(drop=True).to_parquet(target, index=False)
+            files[target.name] = {"sha256": _sha256(target), "rows": int(len(table))}
+        for name, array in (arrays or {}).items():
+            array = np.asarray(array)
+            if array.dtype == object:
+                raise TypeError(f"array {name!r} has dtype object; artefacts hold numeric arrays only")
+            target = staging / f"{name}.npy"
+            np.save(target, array, allow_pickle=False)
+            files[target.name] = {"sha256": _sha256(target), "shape": list(array.shape)}
+        manifest = {"kind": kind, "format_version": FORMAT_VERSION, "library_version": __version__,
+                    "files": files, "meta": meta or {}}
+        (staging / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n",
+                                        encoding="utf-8")
+        if directory.exists():
+            retired = Path(tempfile.mkdtemp(prefix=f".{directory.name}.old.", dir=directory.parent))
+            os.replace(directory, retired / directory.name)
+            os.replace(staging, directory)
+            shutil.rmtree(retired, ignore_errors=True)
+        else:
+            os.replace(staging, directory)
+    finally:
+        if staging.exists():
+            shutil.rmtree(staging, ignore_errors=True)
+    return manifest
+
+
+def read_manifest(directory: str | os.PathLike) -> dict:
+    path = Path(directory) / MANIFEST
+    if not path.is_file():
+        raise ArtefactError(f"{path}: no manifest; {directory} is not a titlematch artefact")
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise ArtefactError(f"{path}: manifest is not valid JSON: {exc}") from exc
+
+
+def load_artefact(directory: str | os.PathLike, kind: str) -> Artefact:
+    """Load and verify an artefact of ``kind``; raise ``ArtefactError`` naming the offending file."""
+    directory = Path(directory)
+    manifest = read_manifest(directory)
+    if manifest.get("kind") != kind:
+        raise ArtefactError(f"{directory}: holds a {manifest.get('kind')!r}, expected a {kind!r}")
+    if manifest.get("format_version") != FORMAT_VERSION:
+        raise ArtefactError(f"{directory}: format version {manifest.get('format_version')!r}; "
+                            f"this titlematch reads version {FORMAT_VERSION}")
+    tables, arrays = {}, {}
+    for name, info in manifest.get("files", {}).items():
+        path = directory / name
+        if Path(name).name != name or not path.is_file():
+            raise ArtefactError(f"{path}: listed in the manifest but missing")
+        if _sha256(path) != info.get("sha256"):
+            raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
+        if name.endswith(".parquet"):
+            tables[name[: -len(".parquet")]] = pd.read_parquet(path)
+        elif name.endswith(".npy"):
+            arrays[name[: -len(".npy")]] = np.load(path, allow_pickle=False)
+        else:
+            raise ArtefactError(f"{path}: unexpected file type in an artefact")
+    return Artefact(kind, tables, arrays, manifest.get("meta", {}), manifest)

@@ -1,0 +1,1 @@
+"""Normalizers: job titles, establishment names, addresses, phonetic keys, spelling correction."""

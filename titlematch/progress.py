@@ -1,0 +1,39 @@
+"""Progress bars and the one-line summary each command prints."""
+from __future__ import annotations
+
+import sys
+import time
+from typing import Iterable, TypeVar
+
+from tqdm.auto import tqdm
+
+T = TypeVar("T")
+
+
+def progress(items: Iterable[T], *, total: int | None = None, desc: str = "", quiet: bool = False,
+             min_total: int = 0) -> Iterable[T]:
+    """Wrap ``items`` in a progress bar on stderr unless ``quiet`` or the job is small."""
+    if quiet or (total is not None and total < min_total):
+        return items
+    return tqdm(items, total=total, desc=desc, file=sys.stderr, leave=False, mininterval=0.5)
+
+
+class Summary:
+    """Times a command and prints ``titlematch CMD: rows in N, ... time T s`` at the end."""
+
+    def __init__(self, command: str, quiet: bool = False) -> None:
+        self.command = command
+        self.quiet = quiet
+        self.counts: dict[str, int] = {}
+        self.start = time.perf_counter()
+
+    def set(self, **counts: int) -> None:
+        self.counts.update({k: int(v) for k, v in counts.items()})
+
+    def line(self) -> str:
+        parts = [f"{k.replace('_', ' ')} {v:,}" for k, v in self.counts.items()]
+        parts.append(f"time {time.perf_counter() - self.start:.1f} s")
+        return f"titlematch {self.command}: " + ", ".join(parts)
+
+    def print(self) -> None:
+        print(self.line(), file=sys.stderr if self.quiet else sys.stdout)
