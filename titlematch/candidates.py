@@ -1,0 +1,216 @@
+"""Candidate codes for normalized titles: the searchable index over a dictionary.
+
+Sources, each cheap and each catching what the others miss:
+exact key; key after spelling correction; the primary role of a multi-role title;
+IDF-weighted word overlap (word TF-IDF cosine); character n-gram TF-IDF neighbours
+(misspellings, word order, run-together words); and a linear text classifier over
+word 1-2-grams and character 4-grams for titles never seen. Candidates from all
+sources are aggregated per code, since many dictionary entries share one.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+from sklearn.feature_extraction.text import HashingVectorizer, TfidfTransformer, TfidfVectorizer
+from sklearn.preprocessing import normalize as l2_normalize
+
+from .dictionary import TitleDictionary
+from .normalize.spelling import SpellingCorrector
+
+CHUNK = 2048
+CLASSIFIER_FEATURES = 2 ** 20
+CLASSIFIER_TEMPERATURE = 20.0  # turns centroid cosines into a sharp softmax over codes
+
+
+def _char_vectorizer(**kw) -> TfidfVectorizer:
+    return TfidfVectorizer(analyzer="char_wb", ngram_range=(3, 3), sublinear_tf=True, dtype=np.float32, **kw)
+
+
+def _word_vectorizer(**kw) -> TfidfVectorizer:
+    return TfidfVectorizer(analyzer="word", token_pattern=r"\S+", dtype=np.float32, **kw)
+
+
+def _classifier_vectorizers():
+    words = HashingVectorizer(analyzer="word", token_pattern=r"\S+", ngram_range=(1, 2), alternate_sign=False,
+                              n_features=CLASSIFIER_FEATURES, norm=None, dtype=np.float32)
+    chars = HashingVectorizer(analyzer="char_wb", ngram_range=(4, 4), alternate_sign=False,
+                              n_features=CLASSIFIER_FEATURES, norm=None, dtype=np.float32)
+    return words, chars
+
+
+def _restore_tfidf(make, vocabulary: pd.DataFrame, idf: np.ndarray) -> TfidfVectorizer:
+    vec = make(vocabulary=dict(zip(vocabulary["term"], vocabulary["index"].astype(int))))
+    vec.idf_ = idf
+    return vec
+
+
+def top_k_sparse(scores: sp.csr_matrix, k: int, min_score: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Rows, columns and values of the ``k`` largest entries of each row of a CSR matrix."""
+    scores = scores.tocsr()
+    rows, cols, vals = [], [], []
+    indptr, indices, data = scores.indptr, scores.indices, scores.data
+    for r in range(scores.shape[0]):
+        start, end = indptr[r], indptr[r + 1]
+        if start == end:
+            continue
+        v = data[start:end]
+        if end - start > k:
+            pick = np.argpartition(-v, k - 1)[:k]
+        else:
+            pick = np.arange(end - start)
+        pick = pick[v[pick] > min_score]
+        rows.append(np.full(len(pick), r, dtype=np.int64))
+        cols.append(indices[start:end][pick])
+        vals.append(v[pick])
+    if not rows:
+        return np.empty(0, np.int64), np.empty(0, np.int64), np.empty(0, np.float32)
+    return np.concatenate(rows), np.concatenate(cols).astype(np.int64), np.concatenate(vals)
+
+
+class TitleIndex:
+    """Everything needed to find candidate codes for a normalized title, built from a dictionary.
+
+    Parameters
+    ----------
+    n_neighbours : int
+        Dictionary keys kept per title from each similarity source.
+    classifier_top : int
+        Codes the text classifier contributes per title.
+    """
+
+    def __init__(self, n_neighbours: int = 10, classifier_top: int = 3, random_state: int = 0):
+        self.n_neighbours = n_neighbours
+        self.classifier_top = classifier_top
+        self.random_state = random_state
+
+    # ---------------------------------------------------------------- fitting
+    def fit(self, dictionary: TitleDictionary) -> "TitleIndex":
+        entries = dictionary.entries
+        self.keys_ = np.array(sorted(entries["key"].unique()), dtype=object)
+        self.codes_ = np.array(sorted(entries["code"].unique()), dtype=object)
+        self._fit_key_codes(entries)
+        self.char_vectorizer_ = _char_vectorizer(min_df=1).fit(self.keys_)
+        self.word_vectorizer_ = _word_vectorizer().fit(self.keys_)
+        self._fit_key_matrices()
+        self._fit_classifier(entries)
+        self.corrector_ = SpellingCorrector().fit(dictionary.vocabulary)
+        return self
+
+    def _fit_key_codes(self, entries: pd.DataFrame) -> None:
+        key_pos = pd.Index(self.keys_).get_indexer(entries["key"])
+        code_pos = pd.Index(self.codes_).get_indexer(entries["code"])
+        self.key_codes_ = sp.csr_matrix((entries["weight"].to_numpy(np.float64), (key_pos, code_pos)),
+                                        shape=(len(self.keys_), len(self.codes_)))
+        self.key_lookup_ = {k: i for i, k in enumerate(self.keys_)}
+
+    def _fit_key_matrices(self) -> None:
+        self.char_matrix_ = self.char_vectorizer_.transform(self.keys_).T.tocsr()
+        self.word_matrix_ = self.word_vectorizer_.transform(self.keys_).T.tocsr()
+
+    def _classifier_matrix(self, keys) -> sp.csr_matrix:
+        words, chars = self._hashers
+        raw = words.transform(keys) + chars.transform(keys)
+        return l2_normalize(raw.multiply(self.classifier_idf_).tocsr())
+
+    @property
+    def _hashers(self):
+        if not hasattr(self, "_hashers_cache"):
+            self._hashers_cache = _classifier_vectorizers()
+        return self._hashers_cache
+
+    def _fit_classifier(self, entries: pd.DataFrame) -> None:
+        # The published method (TF-IDF word 1-2-grams + character 4-grams into a linear model), as a
+        # nearest-centroid (Rocchio) model: one sparse product over the distinct (title, code) pairs
+        # weighted by their records, so a million-record build takes seconds and the weights stay sparse.
+        words, chars = self._hashers
+        raw = words.transform(entries["key"]) + chars.transform(entries["key"])
+        tfidf = TfidfTransformer(sublinear_tf=True).fit(raw)
+        self.classifier_idf_ = tfidf.idf_.astype(np.float32)
+        X = self._classifier_matrix(entries["key"])
+        y = pd.Index(self.codes_).get_indexer(entries["code"])
+        weight = np.log1p(entries["weight"].to_numpy()).astype(np.float32)  # damp the largest titles
+        membership = sp.csr_matrix((weight, (y, np.arange(len(y)))), shape=(len(self.codes_), len(y)))
+        centroids = l2_normalize((membership @ X).tocsr())
+        centroids.data[np.abs(centroids.data) < 1e-4] = 0.0  # negligible weights only bloat the file
+        centroids.eliminate_zeros()
+        self.classifier_coef_ = centroids.astype(np.float32)
+        self.classifier_intercept_ = np.zeros(len(self.codes_))
+        self.classifier_classes_ = np.arange(len(self.codes_), dtype=np.int64)
+
+    # ---------------------------------------------------------------- persistence
+    def tables(self) -> dict[str, pd.DataFrame]:
+        def vocab(vec):
+            items = sorted(vec.vocabulary_.items(), key=lambda kv: kv[1])
+            return pd.DataFrame({"term": [t for t, _ in items], "index": [i for _, i in items]})
+        return {"index_char_vocabulary": vocab(self.char_vectorizer_),
+                "index_word_vocabulary": vocab(self.word_vectorizer_)}
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        coef = self.classifier_coef_.tocsr()
+        return {"index_char_idf": self.char_vectorizer_.idf_, "index_word_idf": self.word_vectorizer_.idf_,
+                "classifier_idf": self.classifier_idf_, "classifier_coef_data": coef.data,
+                "classifier_coef_indices": coef.indices, "classifier_coef_indptr": coef.indptr,
+                "classifier_coef_shape": np.array(coef.shape, dtype=np.int64),
+                "classifier_intercept": self.classifier_intercept_, "classifier_classes": self.classifier_classes_}
+
+    def params(self) -> dict:
+        return {"n_neighbours": self.n_neighbours, "classifier_top": self.classifier_top,
+                "random_state": self.random_state}
+
+    @classmethod
+    def restore(cls, dictionary: TitleDictionary, tables: dict, arrays: dict, params: dict) -> "TitleIndex":
+        self = cls(**params)
+        entries = dictionary.entries
+        self.keys_ = np.array(sorted(entries["key"].unique()), dtype=object)
+        self.codes_ = np.array(sorted(entries["code"].unique()), dtype=object)
+        self._fit_key_codes(entries)
+        self.char_vectorizer_ = _restore_tfidf(_char_vectorizer, tables["index_char_vocabulary"], arrays["index_char_idf"])
+        self.word_vectorizer_ = _restore_tfidf(_word_vectorizer, tables["index_word_vocabulary"], arrays["index_word_idf"])
+        self._fit_key_matrices()
+        self.classifier_idf_ = arrays["classifier_idf"]
+        shape = tuple(int(s) for s in arrays["classifier_coef_shape"])
+        self.classifier_coef_ = sp.csr_matrix((arrays["classifier_coef_data"], arrays["classifier_coef_indices"],
+                                               arrays["classifier_coef_indptr"]), shape=shape)
+        self.classifier_intercept_ = arrays["classifier_intercept"]
+        self.classifier_classes_ = arrays["classifier_classes"]
+        self.corrector_ = SpellingCorrector().fit(dictionary.vocabulary)
+        return self
+
+    # ---------------------------------------------------------------- searching
+    def neighbours(self, queries, source: str) -> pd.DataFrame:
+        """Top dictionary keys per query by ``source`` ("char" or "word") cosine: query, key, sim."""
+        vec, matrix = ((self.char_vectorizer_, self.char_matrix_) if source == "char"
+                       else (self.word_vectorizer_, self.word_matrix_))
+        out = []
+        for start in range(0, len(queries), CHUNK):
+            q = vec.transform(queries[start:start + CHUNK])
+            rows, cols, vals = top_k_sparse(q @ matrix, self.n_neighbours, min_score=0.05)
+            out.append(pd.DataFrame({"query": rows + start, "key": cols, "sim": vals.astype(np.float64)}))
+        return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
+
+    def classify(self, queries) -> pd.DataFrame:
+        """The text classifier's top codes per query: query, code (position), prob (softmax over codes)."""
+        out = []
+        coef_t = self.classifier_coef_.T.tocsr()
+        for start in range(0, len(queries), CHUNK):
+            X = self._classifier_matrix(queries[start:start + CHUNK])
+            prob = self._softmax(np.asarray((X @ coef_t).todense()) + self.classifier_intercept_)
+            k = min(self.classifier_top, prob.shape[1])
+            top = np.argpartition(-prob, k - 1, axis=1)[:, :k]
+            rows = np.repeat(np.arange(len(top)), k)
+            out.append(pd.DataFrame({"query": rows + start, "code": self.classifier_classes_[top.ravel()],
+                                     "prob": prob[rows, top.ravel()]}))
+        return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "code": [], "prob": []})
+
+    @staticmethod
+    def _softmax(cosine: np.ndarray) -> np.ndarray:
+        logits = CLASSIFIER_TEMPERATURE * cosine
+        logits -= logits.max(axis=1, keepdims=True)
+        prob = np.exp(logits)
+        return prob / prob.sum(axis=1, keepdims=True)
+
+    def exact(self, queries) -> pd.DataFrame:
+        """Queries whose text is a dictionary key: query, key."""
+        hits = [(i, self.key_lookup_[q]) for i, q in enumerate(queries) if q in self.key_lookup_]
+        return pd.DataFrame(hits, columns=["query", "key"], dtype=np.int64)

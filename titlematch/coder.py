@@ -1,0 +1,218 @@
+"""The title coder: a scikit-learn style estimator that codes job titles with a dictionary.
+
+``TitleCoder().fit(records, codes)`` builds a ``TitleDictionary`` and its search index;
+``code(frame)`` returns the input with the chosen code, its official title, a score and
+the next two candidates; ``features(frame)`` exposes the per-candidate features a
+confidence model learns from. ``save``/``load`` keep dictionary and index together in
+one checksummed directory.
+"""
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator
+
+from .artefact import load_artefact
+from .candidates import TitleIndex
+from .dictionary import KIND, TitleDictionary
+from .features import FEATURES, ContextTables, candidate_features
+from .normalize.title import normalize_titles
+
+OUTPUT_COLUMNS = ["title_normalized", "code", "code_title", "score", "code_2", "score_2", "code_3", "score_3"]
+
+
+def _as_frame(X) -> pd.DataFrame:
+    if isinstance(X, pd.DataFrame):
+        if "title" not in X.columns:
+            raise ValueError(f"X must have a 'title' column; it has {list(X.columns)}")
+        return X
+    if isinstance(X, pd.Series):
+        return pd.DataFrame({"title": X.values}, index=X.index)
+    return pd.DataFrame({"title": list(X)})
+
+
+class TitleCoder(BaseEstimator):
+    """Code free-text job titles to classification codes from past coded records.
+
+    Parameters
+    ----------
+    half_life : float
+        Years after which a past record counts half (recency weighting of the dictionary).
+    n_neighbours : int
+        Dictionary titles considered per new title from each similarity search.
+    classifier_top : int
+        Codes the text classifier adds per title.
+    max_candidates : int
+        Candidate codes kept per title.
+    code_level : {"as-is", "soc"}
+        ``"soc"`` maps O*NET-SOC codes to their SOC 2018 detailed occupation.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> past = pd.DataFrame({"title": ["registered nurse", "truck driver", "line cook"],
+    ...                      "code": ["29-1141", "53-3032", "35-2014"]})
+    >>> coder = TitleCoder().fit(past, past["code"])
+    >>> coder.predict(["Registered Nurse"]).tolist()
+    ['29-1141']
+    """
+
+    def __init__(self, half_life: float = 3.0, n_neighbours: int = 10, classifier_top: int = 3,
+                 max_candidates: int = 10, code_level: str = "as-is", random_state: int = 0):
+        self.half_life = half_life
+        self.n_neighbours = n_neighbours
+        self.classifier_top = classifier_top
+        self.max_candidates = max_candidates
+        self.code_level = code_level
+        self.random_state = random_state
+
+    # ---------------------------------------------------------------- fitting
+    def fit(self, X, y=None, classification: pd.DataFrame | None = None) -> "TitleCoder":
+        """Build the dictionary from records ``X`` (``title`` [, ``context``, ``year``]) coded ``y``."""
+        records = _as_frame(X).copy()
+        if y is not None:
+            records["code"] = np.asarray(y, dtype=object)
+        dictionary = TitleDictionary.build(records, classification, half_life=self.half_life,
+                                           code_level=self.code_level)
+        return self.fit_dictionary(dictionary)
+
+    def fit_dictionary(self, dictionary: TitleDictionary) -> "TitleCoder":
+        """Build the search index over an existing dictionary."""
+        if not len(dictionary.entries):
+            raise ValueError("the dictionary has no entries: every record was rejected or none was given")
+        self.dictionary_ = dictionary
+        self.index_ = TitleIndex(self.n_neighbours, self.classifier_top, random_state=self.random_state).fit(dictionary)
+        self._prepare()
+        return self
+
+    @classmethod
+    def from_dictionary(cls, dictionary: TitleDictionary, **params) -> "TitleCoder":
+        return cls(half_life=dictionary.half_life, code_level=dictionary.code_level, **params).fit_dictionary(dictionary)
+
+    def _prepare(self) -> None:
+        self.classes_ = self.index_.codes_
+        self.context_ = ContextTables(self.dictionary_.contexts, self.index_)
+        self.official_ = set(zip(self.dictionary_.official["key"], self.dictionary_.official["code"]))
+        self.code_titles_ = self.dictionary_.code_titles()
+
+    # ---------------------------------------------------------------- persistence
+    def save(self, directory: str | os.PathLike) -> Path:
+        return self.dictionary_.save(directory, extra_tables=self.index_.tables(), arrays=self.index_.arrays(),
+                                     extra_meta={"index": self.index_.params(), "coder": self.get_params()})
+
+    @classmethod
+    def load(cls, directory: str | os.PathLike) -> "TitleCoder":
+        art = load_artefact(directory, KIND)
+        dictionary = TitleDictionary._from_artefact(art)
+        self = cls(**art.meta.get("coder", {}))
+        self.dictionary_ = dictionary
+        if "index" in art.meta:
+            self.index_ = TitleIndex.restore(dictionary, art.tables, art.arrays, art.meta["index"])
+        else:  # a dictionary saved on its own: build the index now
+            self.index_ = TitleIndex(self.n_neighbours, self.classifier_top, random_state=self.random_state).fit(dictionary)
+        self._prepare()
+        return self
+
+    # ---------------------------------------------------------------- coding
+    def _units(self, frame: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray, pd.DataFrame]:
+        """Normalize titles and reduce them to distinct (key, context) units."""
+        titles = frame["title"]
+        normalized = normalize_titles(titles)
+        normalized.index = range(len(frame))
+        context = frame["context"].fillna("").astype(str).to_numpy() if "context" in frame.columns else np.full(len(frame), "")
+        units = pd.DataFrame({"key": normalized["key"].to_numpy(), "context": context})
+        uniq = units.drop_duplicates().reset_index(drop=True)
+        unit_of_row = pd.MultiIndex.from_frame(uniq).get_indexer(pd.MultiIndex.from_frame(units))
+        info = normalized.groupby("key", sort=False).first()
+        keys = uniq["key"]
+        corrected, spelled = self._correct(keys.unique())
+        uniq["corrected"] = keys.map(corrected)
+        uniq["spelling_changed"] = keys.map(spelled).astype(float)
+        uniq["primary"] = keys.map(info["primary"]).fillna("")
+        uniq["n_roles"] = keys.map(info["roles"].str.count(r"\|") + 1).fillna(1)
+        uniq["n_changes"] = keys.map(info["changes"].map(lambda c: len(c.split("; ")) if c else 0)) + uniq["spelling_changed"]
+        return uniq, unit_of_row, normalized
+
+    def _correct(self, keys) -> tuple[dict, dict]:
+        corrected, changed = {}, {}
+        for key in keys:
+            tokens, changes = self.index_.corrector_.correct(key.split())
+            corrected[key] = " ".join(tokens)
+            changed[key] = len(changes)
+        return corrected, changed
+
+    def features(self, X) -> pd.DataFrame:
+        """Candidate codes with their features, one row per (record, candidate), best first.
+
+        Columns: ``record`` (position in ``X``), ``code``, ``key`` (the dictionary title behind the
+        code) and the features listed in ``titlematch.features.FEATURES``.
+        """
+        frame = _as_frame(X)
+        units, unit_of_row, _ = self._units(frame)
+        cands = self._unit_candidates(units)
+        rows = pd.DataFrame({"record": np.arange(len(frame)), "unit": unit_of_row})
+        return rows.merge(cands, on="unit").drop(columns="unit").sort_values(["record", "rank"]).reset_index(drop=True)
+
+    def _unit_candidates(self, units: pd.DataFrame) -> pd.DataFrame:
+        live = units[units["key"] != ""]
+        if not len(live):
+            return pd.DataFrame(columns=["unit", "code", "key"] + FEATURES)
+        cands = candidate_features(self.index_, self.context_, self.official_, live.reset_index(drop=True),
+                                   self.max_candidates)
+        cands["unit"] = live.index.to_numpy()[cands["unit"].to_numpy()]
+        return cands
+
+    def code(self, X, confidence=None) -> pd.DataFrame:
+        """Every input column plus ``title_normalized``, ``code``, ``code_title``, ``score`` and the
+        next two candidates; with a fitted ``confidence`` model also ``confidence*`` and ``decision``."""
+        frame = _as_frame(X)
+        units, unit_of_row, normalized = self._units(frame)
+        cands = self._unit_candidates(units)
+        if confidence is not None:
+            cands = confidence.score_candidates(cands)
+        out = frame.copy()
+        out["title_normalized"] = normalized["key"].to_numpy()
+        top = _top_three(cands, len(units), self.code_titles_, with_confidence=confidence is not None)
+        for col in top.columns:
+            out[col] = top[col].to_numpy()[unit_of_row]
+        if confidence is not None:
+            out["decision"] = confidence.route(out["confidence"].to_numpy())
+        return out
+
+    def predict(self, X) -> np.ndarray:
+        return self.code(X)["code"].to_numpy(dtype=object)
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Scores over ``classes_`` normalized per record (rows without candidates are all zero)."""
+        feats = self.features(X)
+        n = len(_as_frame(X))
+        proba = np.zeros((n, len(self.classes_)))
+        col = pd.Index(self.classes_).get_indexer(feats["code"])
+        proba[feats["record"].to_numpy(), col] = feats["score"].to_numpy()
+        sums = proba.sum(axis=1, keepdims=True)
+        return np.divide(proba, sums, out=np.zeros_like(proba), where=sums > 0)
+
+    def score(self, X, y) -> float:
+        return float(np.mean(self.predict(X) == np.asarray(y, dtype=object)))
+
+
+def _top_three(cands: pd.DataFrame, n_units: int, titles: dict, with_confidence: bool) -> pd.DataFrame:
+    order = "confidence" if with_confidence else "score"
+    ranked = cands.sort_values(["unit", order, "score", "code"], ascending=[True, False, False, True])
+    ranked = ranked.assign(pos=ranked.groupby("unit").cumcount())
+    out = pd.DataFrame(index=range(n_units))
+    for pos, suffix in ((0, ""), (1, "_2"), (2, "_3")):
+        layer = ranked[ranked["pos"] == pos].set_index("unit")
+        out["code" + suffix] = layer["code"].reindex(out.index).fillna("")
+        if pos == 0:
+            out["code_title"] = out["code"].map(titles).fillna("")
+        out["score" + suffix] = layer["score"].reindex(out.index).round(6)
+        if with_confidence:
+            out["confidence" + suffix] = layer["confidence"].reindex(out.index).round(6)
+    cols = ["code", "code_title", "score", "code_2", "score_2", "code_3", "score_3"]
+    if with_confidence:
+        cols += ["confidence", "confidence_2", "confidence_3"]
+    return out[cols]

@@ -1,0 +1,331 @@
+"""Calibrated confidence: the probability that a candidate code is right.
+
+A classifier over the coder's features (logistic regression or histogram gradient
+boosting, whichever has the lower cross-validated log loss) gives a raw score; a
+calibration map fitted on held-out folds (cross-fitting) turns it into a probability.
+Labels come from the office's own history (a later year scored against the earlier
+years, so no record ever matches itself) and, when a gold sample is given, the map is
+re-fitted on expert codes. With no labels at all, Fellegi–Sunter weights estimated by EM
+give a first, less reliable posterior.
+
+Everything learned is stored as plain arrays (coefficients, tree nodes, calibration
+knots), so a saved model loads without executing code.
+"""
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy.special import expit
+from sklearn.base import BaseEstimator
+from sklearn.ensemble import HistGradientBoostingClassifier
+from sklearn.isotonic import IsotonicRegression
+from sklearn.linear_model import LogisticRegression
+from sklearn.metrics import log_loss
+from sklearn.model_selection import GroupKFold
+from sklearn.preprocessing import StandardScaler
+
+from .artefact import load_artefact, save_artefact
+from .features import FEATURES
+
+KIND = "confidence-model"
+ECM_RULES = {  # binarized features for the unsupervised start: name -> (feature, threshold)
+    "exact": ("exact", 0.5), "similar": ("sim_char", 0.85), "majority": ("share", 0.8),
+    "context": ("ctx_share", 0.5), "classifier": ("clf_rank", 1.5), "support": ("support", 0.6),
+}
+_TREE_FIELDS = ("feature_idx", "num_threshold", "missing_go_to_left", "left", "right", "value", "is_leaf")
+
+
+# ---------------------------------------------------------------- base models as plain arrays
+class _Logistic:
+    name = "logistic"
+
+    def fit(self, X, y, w):
+        self.scaler = StandardScaler().fit(X)
+        model = LogisticRegression(C=1.0, max_iter=1000).fit(self.scaler.transform(X), y, sample_weight=w)
+        self.arrays = {"mean": self.scaler.mean_, "scale": self.scaler.scale_, "coef": model.coef_.ravel(),
+                       "intercept": model.intercept_}
+        return self
+
+    def raw(self, X):
+        a = self.arrays
+        return ((X - a["mean"]) / a["scale"]) @ a["coef"] + a["intercept"][0]
+
+
+class _Trees:
+    """Histogram gradient boosting, evaluated from its exported node arrays."""
+    name = "gradient_boosting"
+
+    def fit(self, X, y, w):
+        model = HistGradientBoostingClassifier(max_iter=150, learning_rate=0.1, max_leaf_nodes=15,
+                                               min_samples_leaf=40, l2_regularization=1.0, random_state=0,
+                                               early_stopping=False).fit(X, y, sample_weight=w)
+        self.model = model
+        self.arrays = _export_trees(model)
+        return self
+
+    def raw(self, X):
+        return _evaluate_trees(self.arrays, X)
+
+
+def _export_trees(model: HistGradientBoostingClassifier) -> dict[str, np.ndarray]:
+    trees = [p[0].nodes for p in model._predictors]
+    offsets = np.cumsum([0] + [len(t) for t in trees]).astype(np.int64)
+    nodes = np.concatenate(trees)
+    out = {f"tree_{f}": np.asarray(nodes[f]) for f in _TREE_FIELDS}
+    out["tree_offsets"] = offsets
+    out["tree_baseline"] = np.asarray(model._baseline_prediction, dtype=np.float64).ravel()
+    return out
+
+
+def _evaluate_trees(a: dict[str, np.ndarray], X: np.ndarray) -> np.ndarray:
+    """Sum of leaf values over all trees plus the baseline (the model's raw decision value)."""
+    X = np.asarray(X, dtype=np.float64)
+    total = np.full(len(X), a["tree_baseline"][0])
+    rows = np.arange(len(X))
+    for t in range(len(a["tree_offsets"]) - 1):
+        base = a["tree_offsets"][t]
+        node = np.full(len(X), base)
+        while True:
+            leaf = a["tree_is_leaf"][node].astype(bool)
+            if leaf.all():
+                break
+            active = ~leaf
+            n = node[active]
+            value = X[rows[active], a["tree_feature_idx"][n]]
+            left = np.where(np.isnan(value), a["tree_missing_go_to_left"][n].astype(bool),
+                            value <= a["tree_num_threshold"][n])
+            node[active] = base + np.where(left, a["tree_left"][n], a["tree_right"][n])
+        total += a["tree_value"][node]
+    return total
+
+
+_MODELS = {"logistic": _Logistic, "gradient_boosting": _Trees}
+
+
+# ---------------------------------------------------------------- calibration maps
+def fit_calibration(raw: np.ndarray, y: np.ndarray, w: np.ndarray | None = None, method: str = "auto") -> dict:
+    """Fit isotonic regression (enough data) or Platt scaling (small samples) on raw scores."""
+    if method == "auto":
+        method = "isotonic" if len(raw) >= 1000 and min(y.sum(), (1 - y).sum()) >= 50 else "platt"
+    if method == "isotonic":
+        iso = IsotonicRegression(out_of_bounds="clip", y_min=0.0, y_max=1.0).fit(raw, y, sample_weight=w)
+        return {"method": "isotonic", "x": iso.X_thresholds_, "y": iso.y_thresholds_}
+    if method == "platt":
+        a, b = platt_scaling(raw, y, w)
+        return {"method": "platt", "x": np.array([a, b]), "y": np.array([])}
+    raise ValueError(f"calibration method must be 'isotonic', 'platt' or 'auto', got {method!r}")
+
+
+def platt_scaling(raw: np.ndarray, y: np.ndarray, w: np.ndarray | None = None) -> tuple[float, float]:
+    """Platt (1999) scaling: P(y=1 | s) = 1 / (1 + exp(a*s + b)), fitted by regularised maximum likelihood
+    with Platt's target smoothing (y+ = (N+ + 1)/(N+ + 2), y- = 1/(N- + 2))."""
+    raw = np.asarray(raw, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    w = np.ones_like(raw) if w is None else np.asarray(w, dtype=np.float64)
+    n_pos, n_neg = (w * y).sum(), (w * (1 - y)).sum()
+    target = np.where(y > 0, (n_pos + 1) / (n_pos + 2), 1 / (n_neg + 2))
+    from scipy.optimize import minimize
+
+    def loss(ab):
+        z = ab[0] * raw + ab[1]
+        p = expit(-z)
+        p = np.clip(p, 1e-12, 1 - 1e-12)
+        return -(w * (target * np.log(p) + (1 - target) * np.log(1 - p))).sum()
+
+    result = minimize(loss, x0=np.array([-1.0, 0.0]), method="L-BFGS-B")
+    return float(result.x[0]), float(result.x[1])
+
+
+def apply_calibration(cal: dict, raw: np.ndarray) -> np.ndarray:
+    if cal["method"] == "isotonic":
+        return np.interp(raw, cal["x"], cal["y"])
+    a, b = cal["x"]
+    return expit(-(a * raw + b))
+
+
+# ---------------------------------------------------------------- the model
+class ConfidenceModel(BaseEstimator):
+    """Turns candidate features into calibrated probabilities that the code is right.
+
+    Parameters
+    ----------
+    models : tuple of str
+        Base classifiers to compare by cross-validated log loss ("logistic", "gradient_boosting").
+    calibration : {"auto", "isotonic", "platt"}
+        Calibration map; "auto" picks isotonic for large samples and Platt scaling for small ones.
+    n_folds : int
+        Folds for model choice and for cross-fitting the calibration map.
+    threshold : float
+        Confidence at or above which a record is accepted (set by ``titlematch calibrate``).
+
+    Examples
+    --------
+    >>> import numpy as np, pandas as pd
+    >>> from titlematch.features import FEATURES
+    >>> rng = np.random.default_rng(0)
+    >>> X = pd.DataFrame(rng.random((400, len(FEATURES))), columns=FEATURES)
+    >>> y = (X["share"] + 0.2 * rng.standard_normal(400) > 0.5).astype(int)
+    >>> model = ConfidenceModel(models=("logistic",)).fit(X, y)
+    >>> p = model.predict_proba(X)[:, 1]
+    >>> bool(((p >= 0) & (p <= 1)).all())
+    True
+    """
+
+    def __init__(self, models=("logistic", "gradient_boosting"), calibration: str = "auto", n_folds: int = 5,
+                 threshold: float = 0.97, random_state: int = 0):
+        self.models = models
+        self.calibration = calibration
+        self.n_folds = n_folds
+        self.threshold = threshold
+        self.random_state = random_state
+
+    @staticmethod
+    def _matrix(X: pd.DataFrame) -> np.ndarray:
+        missing = [f for f in FEATURES if f not in X.columns]
+        if missing:
+            raise ValueError(f"features missing: {missing}")
+        return X[FEATURES].to_numpy(dtype=np.float64)
+
+    def fit(self, X: pd.DataFrame, y, groups=None, sample_weight=None) -> "ConfidenceModel":
+        """Choose the base model by grouped cross-validated log loss, then cross-fit the calibration."""
+        M = self._matrix(X)
+        y = np.asarray(y, dtype=int)
+        w = np.ones(len(y)) if sample_weight is None else np.asarray(sample_weight, dtype=np.float64)
+        groups = np.arange(len(y)) if groups is None else np.asarray(groups)
+        if len(np.unique(y)) < 2:
+            raise ValueError("labels hold a single class; a confidence model needs right and wrong candidates")
+        folds = list(GroupKFold(n_splits=min(self.n_folds, len(np.unique(groups)))).split(M, y, groups))
+        self.cv_log_loss_, oof = {}, {}
+        for name in self.models:
+            raw = np.zeros(len(y))
+            for train, test in folds:
+                raw[test] = _MODELS[name]().fit(M[train], y[train], w[train]).raw(M[test])
+            oof[name] = raw
+            self.cv_log_loss_[name] = float(log_loss(y, np.clip(expit(raw), 1e-9, 1 - 1e-9), sample_weight=w))
+        self.base_name_ = min(self.cv_log_loss_, key=self.cv_log_loss_.get)
+        self.base_arrays_ = _MODELS[self.base_name_]().fit(M, y, w).arrays
+        self.calibration_ = fit_calibration(oof[self.base_name_], y, w, self.calibration)
+        self.oof_confidence_ = apply_calibration(self.calibration_, oof[self.base_name_])
+        self.source_ = "self-supervised"
+        self.threshold_ = self.threshold
+        return self
+
+    def fit_unsupervised(self, X: pd.DataFrame) -> "ConfidenceModel":
+        """Fellegi–Sunter posterior with m/u probabilities estimated by EM (recordlinkage's ECM)."""
+        import recordlinkage
+
+        binary = binarize(X)
+        binary.index = pd.MultiIndex.from_arrays([np.arange(len(binary)), np.arange(len(binary))])
+        ecm = recordlinkage.ECMClassifier(binarize=None)
+        ecm.fit(binary)
+        names = list(ECM_RULES)
+        self.base_name_ = "fellegi_sunter"
+        self.base_arrays_ = {"m": np.array([ecm.m_probs[n].get(1, 1e-6) for n in names]),
+                             "u": np.array([ecm.u_probs[n].get(1, 1e-6) for n in names]),
+                             "prior": np.array([ecm.p])}
+        self.cv_log_loss_ = {}
+        self.calibration_ = {"method": "identity", "x": np.array([]), "y": np.array([])}
+        self.source_ = "unsupervised (Fellegi-Sunter EM): less reliable until re-fitted on labels"
+        self.threshold_ = self.threshold
+        return self
+
+    def _raw(self, X: pd.DataFrame) -> np.ndarray:
+        if self.base_name_ == "fellegi_sunter":
+            return fellegi_sunter_logit(binarize(X).to_numpy(float), self.base_arrays_)
+        model = _MODELS[self.base_name_]()
+        model.arrays = self.base_arrays_
+        return model.raw(self._matrix(X))
+
+    def recalibrate(self, X: pd.DataFrame, y, groups=None, method: str | None = None) -> "ConfidenceModel":
+        """Re-fit the calibration map on expert labels (a gold sample), cross-fitted by group.
+
+        ``oof_confidence_`` then holds out-of-fold probabilities for honest reporting.
+        """
+        raw = self._raw(X)
+        y = np.asarray(y, dtype=int)
+        groups = np.arange(len(y)) if groups is None else np.asarray(groups)
+        method = method or self.calibration
+        oof = np.zeros(len(y))
+        n_splits = min(self.n_folds, len(np.unique(groups)))
+        for train, test in GroupKFold(n_splits=n_splits).split(raw, y, groups):
+            oof[test] = apply_calibration(fit_calibration(raw[train], y[train], None, method), raw[test])
+        self.calibration_ = fit_calibration(raw, y, None, method)
+        self.oof_confidence_ = oof
+        self.source_ = "gold sample"
+        return self
+
+    def predict_proba(self, X: pd.DataFrame) -> np.ndarray:
+        raw = self._raw(X)
+        p = expit(raw) if self.calibration_["method"] == "identity" else apply_calibration(self.calibration_, raw)
+        return np.column_stack([1 - p, p])
+
+    def score_candidates(self, cands: pd.DataFrame) -> pd.DataFrame:
+        """Add ``confidence`` to candidate rows; a record's candidates never sum above one
+        (at most one code is right), so the top candidate's confidence is comparable."""
+        out = cands.copy()
+        p = self.predict_proba(out)[:, 1] if len(out) else np.array([])
+        group = out["unit"] if "unit" in out.columns else out["record"]
+        out["confidence"] = consistent(p, group.to_numpy())
+        return out
+
+    def route(self, confidence: np.ndarray) -> np.ndarray:
+        conf = np.asarray(confidence, dtype=float)
+        return np.where(np.nan_to_num(conf, nan=-1.0) >= self.threshold_, "accept", "refer").astype(object)
+
+    # ---------------------------------------------------------------- persistence
+    def save(self, directory: str | os.PathLike, *, report: dict | None = None,
+             tables: dict[str, pd.DataFrame] | None = None) -> Path:
+        arrays = {f"base_{k}": v for k, v in self.base_arrays_.items()}
+        arrays["calibration_x"] = np.asarray(self.calibration_["x"], dtype=np.float64)
+        arrays["calibration_y"] = np.asarray(self.calibration_["y"], dtype=np.float64)
+        meta = {"params": self.get_params() | {"models": list(self.models)}, "base_model": self.base_name_,
+                "features": FEATURES, "calibration": self.calibration_["method"], "threshold": self.threshold_,
+                "cv_log_loss": self.cv_log_loss_, "label_source": self.source_, "report": report or {}}
+        save_artefact(directory, KIND, tables or {}, arrays=arrays, meta=meta)
+        return Path(directory)
+
+    @classmethod
+    def load(cls, directory: str | os.PathLike) -> "ConfidenceModel":
+        art = load_artefact(directory, KIND)
+        meta = art.meta
+        if meta.get("features") != FEATURES:
+            raise ValueError(f"{directory}: the model was trained on other features; re-run titlematch calibrate")
+        params = dict(meta["params"])
+        params["models"] = tuple(params["models"])
+        self = cls(**params)
+        self.base_name_ = meta["base_model"]
+        self.base_arrays_ = {k[len("base_"):]: v for k, v in art.arrays.items() if k.startswith("base_")}
+        self.calibration_ = {"method": meta["calibration"], "x": art.arrays["calibration_x"],
+                             "y": art.arrays["calibration_y"]}
+        self.threshold_ = float(meta["threshold"])
+        self.cv_log_loss_ = meta.get("cv_log_loss", {})
+        self.source_ = meta.get("label_source", "")
+        self.report_ = meta.get("report", {})
+        return self
+
+
+def consistent(prob: np.ndarray, groups: np.ndarray) -> np.ndarray:
+    """Scale each record's candidate probabilities down when they sum above one."""
+    total = pd.Series(prob).groupby(np.asarray(groups)).transform("sum").to_numpy()
+    return np.where(total > 1, prob / np.maximum(total, 1e-12), prob)
+
+
+def binarize(X: pd.DataFrame) -> pd.DataFrame:
+    """Agreement patterns for the Fellegi–Sunter start (clf_rank agrees when it is first)."""
+    out = {}
+    for name, (feature, cut) in ECM_RULES.items():
+        values = X[feature].to_numpy(dtype=float)
+        out[name] = (values <= cut) if feature == "clf_rank" else (values >= cut)
+    return pd.DataFrame(out).astype(int)
+
+
+def fellegi_sunter_logit(binary: np.ndarray, params: dict) -> np.ndarray:
+    """log odds of a match: log(p/(1-p)) + sum of log2-free natural weights log(m/u) or log((1-m)/(1-u))."""
+    m = np.clip(params["m"], 1e-6, 1 - 1e-6)
+    u = np.clip(params["u"], 1e-6, 1 - 1e-6)
+    p = float(np.clip(params["prior"][0], 1e-6, 1 - 1e-6))
+    weights = binary * np.log(m / u) + (1 - binary) * np.log((1 - m) / (1 - u))
+    return np.log(p / (1 - p)) + weights.sum(axis=1)

@@ -1,0 +1,188 @@
+"""Comparison features per (title, candidate code): what the confidence model learns from.
+
+One row per distinct (normalized title, context) unit and candidate code. The best
+dictionary key behind each code is the one most similar to the title; its string
+similarities, the code's share among its records, the context agreement and the text
+classifier's probability describe how believable the code is.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+from rapidfuzz import distance, fuzz, process
+
+from .candidates import TitleIndex
+from .dictionary import context_tokens
+
+FEATURES = [
+    "exact", "exact_corrected", "via_role", "sim_char", "sim_word", "ratio", "token_set_ratio", "partial_ratio",
+    "jaro_winkler", "share", "support", "log_key_weight", "log_code_weight", "code_prior", "ctx_share",
+    "ctx_global", "has_context", "ctx_known", "clf_prob", "clf_rank", "official", "n_changes",
+    "spelling_changed", "n_roles", "n_tokens", "n_codes", "score", "score_gap", "rank",
+]
+MAX_CANDIDATES = 10
+
+
+def _pairwise_cosine(a: sp.csr_matrix, b: sp.csr_matrix) -> np.ndarray:
+    return np.asarray(a.multiply(b).sum(axis=1)).ravel()
+
+
+class ContextTables:
+    """Context evidence from a dictionary: per (key, token, code) and per (token, code) weights."""
+
+    def __init__(self, contexts: pd.DataFrame, index: TitleIndex):
+        key_pos = pd.Index(index.keys_).get_indexer(contexts["key"])
+        code_pos = pd.Index(index.codes_).get_indexer(contexts["code"])
+        table = pd.DataFrame({"key": key_pos, "token": contexts["token"].to_numpy(), "code": code_pos,
+                              "weight": contexts["weight"].to_numpy()})
+        table = table[(table["key"] >= 0) & (table["code"] >= 0)]
+        self.key_token_code = table.set_index(["key", "token", "code"])["weight"]
+        self.key_token = table.groupby(["key", "token"])["weight"].sum()
+        self.token_code = table.groupby(["token", "code"])["weight"].sum()
+        self.token = table.groupby("token")["weight"].sum()
+
+
+def _context_features(cands: pd.DataFrame, unit_tokens: pd.Series, ctx: ContextTables) -> pd.DataFrame:
+    """Mean over a unit's context tokens of the code's share: within the best key, and over all keys."""
+    exploded = cands[["row", "unit", "key", "code"]].merge(
+        unit_tokens.rename("token").explode().dropna().reset_index().rename(columns={"index": "unit"}), on="unit")
+    if not len(exploded):
+        return pd.DataFrame({"ctx_share": np.nan, "ctx_global": np.nan}, index=cands["row"])
+    kt = pd.MultiIndex.from_arrays([exploded["key"], exploded["token"]])
+    ktc = pd.MultiIndex.from_arrays([exploded["key"], exploded["token"], exploded["code"]])
+    tc = pd.MultiIndex.from_arrays([exploded["token"], exploded["code"]])
+    key_total = ctx.key_token.reindex(kt).to_numpy()
+    exploded["ctx_share"] = ctx.key_token_code.reindex(ktc).fillna(0).to_numpy() / key_total
+    exploded["ctx_global"] = (ctx.token_code.reindex(tc).fillna(0).to_numpy()
+                              / ctx.token.reindex(exploded["token"]).to_numpy())
+    return exploded.groupby("row")[["ctx_share", "ctx_global"]].mean()
+
+
+def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, units: pd.DataFrame,
+                       max_candidates: int = MAX_CANDIDATES) -> pd.DataFrame:
+    """Candidates and features for ``units`` (columns ``key``, ``corrected``, ``primary``, ``context``,
+    ``n_changes``, ``spelling_changed``, ``n_roles``). Returns one row per (unit, code), best first,
+    with ``unit`` (position in ``units``), ``code`` (string), ``key`` (best dictionary key) and FEATURES.
+    """
+    queries = pd.Index(units["corrected"].unique())
+    q_of_unit = queries.get_indexer(units["corrected"])
+    originals = units.groupby(q_of_unit)["key"].first().reindex(range(len(queries))).to_numpy()
+    primaries = units.groupby(q_of_unit)["primary"].first().reindex(range(len(queries))).to_numpy()
+    qtext = queries.to_numpy(dtype=object)
+
+    pairs = [index.neighbours(qtext, "char"), index.neighbours(qtext, "word")]
+    exact_orig = index.exact(originals).assign(exact=1.0)
+    exact_corr = index.exact(qtext).assign(exact_corrected=1.0)
+    role_mask = np.array([p != o and p != "" for p, o in zip(primaries, originals)])
+    role_q = np.flatnonzero(role_mask)
+    role_hits = index.exact(primaries[role_q]).assign(via_role=1.0)
+    role_hits["query"] = role_q[role_hits["query"].to_numpy()] if len(role_hits) else role_hits["query"]
+    pairs += [exact_orig, exact_corr, role_hits]
+    pairs = pd.concat([p[["query", "key"]] for p in pairs], ignore_index=True).drop_duplicates()
+    flags = pairs.merge(exact_orig, how="left").merge(exact_corr, how="left").merge(role_hits, how="left")
+    flags = flags.fillna({"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0})
+
+    # uniform similarity features for every (query, key) pair, whatever source found it
+    q_idx, k_idx = flags["query"].to_numpy(np.int64), flags["key"].to_numpy(np.int64)
+    qc = index.char_vectorizer_.transform(qtext)
+    qw = index.word_vectorizer_.transform(qtext)
+    kc, kw = index.char_matrix_.T.tocsr(), index.word_matrix_.T.tocsr()
+    flags["sim_char"] = _pairwise_cosine(qc[q_idx], kc[k_idx])
+    flags["sim_word"] = _pairwise_cosine(qw[q_idx], kw[k_idx])
+    flags.loc[(flags["exact"] + flags["exact_corrected"]) > 0, ["sim_char", "sim_word"]] = 1.0
+    flags["strength"] = np.maximum(flags["sim_char"], flags["sim_word"])
+    flags.loc[flags["via_role"] > 0, "strength"] = np.maximum(flags["strength"], 0.9)
+
+    # expand each key to its codes
+    kc_rows = index.key_codes_[k_idx].tocoo()
+    key_total = np.asarray(index.key_codes_.sum(axis=1)).ravel()
+    expanded = flags.iloc[kc_rows.row].reset_index(drop=True)
+    expanded["code"] = kc_rows.col
+    expanded["code_weight"] = kc_rows.data
+    expanded["key_weight"] = key_total[expanded["key"].to_numpy()]
+    expanded["share"] = expanded["code_weight"] / expanded["key_weight"]
+    expanded["vote"] = expanded["strength"] ** 2 * expanded["code_weight"]
+    expanded["key_vote"] = expanded["strength"] ** 2 * expanded["key_weight"]
+    votes = expanded.groupby(["query", "code"])["vote"].sum()
+    vote_total = expanded.drop_duplicates(["query", "key"]).groupby("query")["key_vote"].sum()
+    expanded["match"] = expanded["strength"] * expanded["share"]
+    best = (expanded.sort_values(["query", "code", "strength", "share", "key"],
+                                 ascending=[True, True, False, False, True])
+            .drop_duplicates(["query", "code"]))
+    best["support"] = (votes.reindex(pd.MultiIndex.from_arrays([best["query"], best["code"]])).to_numpy()
+                       / vote_total.reindex(best["query"]).to_numpy())
+
+    clf = index.classify(qtext)
+    clf["clf_rank"] = clf.groupby("query")["prob"].rank(ascending=False, method="first")
+    cands = best.merge(clf.rename(columns={"prob": "clf_prob"}), on=["query", "code"], how="outer")
+    fill = {"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0, "sim_char": 0.0, "sim_word": 0.0,
+            "strength": 0.0, "share": 0.0, "support": 0.0, "code_weight": 0.0, "key_weight": 0.0,
+            "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
+    cands = cands.fillna(fill)
+    # the classifier's probability for codes found by other sources too
+    missing = cands["clf_rank"] >= 99
+    if missing.any():
+        cands.loc[missing, "clf_prob"] = _classifier_prob(index, qtext, cands.loc[missing, "query"].to_numpy(),
+                                                          cands.loc[missing, "code"].to_numpy())
+    cands["key"] = cands["key"].astype(np.int64)
+
+    # to units: every unit of a query shares its candidates; context differs per unit
+    unit_frame = pd.DataFrame({"unit": np.arange(len(units)), "query": q_of_unit})
+    cands = unit_frame.merge(cands, on="query").reset_index(drop=True)
+    cands["row"] = np.arange(len(cands))
+    tokens = units["context"].fillna("").map(context_tokens)
+    tokens.index = np.arange(len(units))
+    ctx_feats = _context_features(cands, tokens, ctx).reindex(cands["row"])
+    cands["ctx_share"] = ctx_feats["ctx_share"].to_numpy()
+    cands["ctx_global"] = ctx_feats["ctx_global"].to_numpy()
+    has_context = tokens.map(len).to_numpy() > 0
+    cands["has_context"] = has_context[cands["unit"].to_numpy()].astype(float)
+    cands["ctx_known"] = cands["ctx_share"].notna().astype(float)
+    share_eff = np.where(cands["ctx_known"] > 0, 0.7 * cands["ctx_share"].fillna(0) + 0.3 * cands["share"],
+                         cands["share"])
+    cands["score"] = np.maximum(cands["strength"] * share_eff, 0.5 * cands["clf_prob"])
+    cands[["ctx_share", "ctx_global"]] = cands[["ctx_share", "ctx_global"]].fillna(-1.0)
+
+    cands = cands.sort_values(["unit", "score", "support", "code"], ascending=[True, False, False, True])
+    cands["rank"] = cands.groupby("unit").cumcount() + 1
+    cands = cands[cands["rank"] <= max_candidates].reset_index(drop=True)
+    cands["n_codes"] = cands.groupby("unit")["code"].transform("size").astype(float)
+    nxt = cands.groupby("unit")["score"].shift(-1).fillna(0.0)
+    first = cands.groupby("unit")["score"].transform("first")
+    cands["score_gap"] = np.where(cands["rank"] == 1, cands["score"] - nxt, cands["score"] - first)
+
+    # string similarities of the title and the best key behind each code
+    key_text = np.where(cands["key"].to_numpy() >= 0, index.keys_[np.maximum(cands["key"].to_numpy(), 0)], "")
+    title_text = qtext[cands["query"].to_numpy()]
+    for name, scorer in (("ratio", fuzz.ratio), ("token_set_ratio", fuzz.token_set_ratio),
+                         ("partial_ratio", fuzz.partial_ratio)):
+        cands[name] = process.cpdist(title_text, key_text, scorer=scorer, workers=-1) / 100.0
+    cands["jaro_winkler"] = process.cpdist(title_text, key_text, scorer=distance.JaroWinkler.normalized_similarity,
+                                           workers=-1)
+    cands.loc[cands["key"] < 0, ["ratio", "token_set_ratio", "partial_ratio", "jaro_winkler"]] = 0.0
+
+    code_strings = index.codes_[cands["code"].to_numpy()]
+    code_total = np.asarray(index.key_codes_.sum(axis=0)).ravel()
+    cands["code_prior"] = np.log(code_total[cands["code"].to_numpy()] / code_total.sum())
+    cands["log_key_weight"] = np.log1p(cands["key_weight"])
+    cands["log_code_weight"] = np.log1p(cands["code_weight"])
+    cands["official"] = [float((k, c) in official) for k, c in zip(key_text, code_strings)]
+    for col in ("n_changes", "spelling_changed", "n_roles"):
+        cands[col] = units[col].to_numpy(dtype=float)[cands["unit"].to_numpy()]
+    cands["n_tokens"] = [len(t.split()) for t in title_text]
+    cands["code"] = code_strings
+    cands["key"] = key_text
+    return cands[["unit", "code", "key"] + FEATURES]
+
+
+def _classifier_prob(index: TitleIndex, qtext: np.ndarray, query: np.ndarray, code: np.ndarray) -> np.ndarray:
+    """The classifier's softmax probability of given (query, code) pairs."""
+    uniq, inverse = np.unique(query, return_inverse=True)
+    coef_t = index.classifier_coef_.T.tocsr()
+    X = index._classifier_matrix(qtext[uniq])
+    prob = index._softmax(np.asarray((X @ coef_t).todense()) + index.classifier_intercept_)
+    class_pos = np.full(len(index.codes_), -1)
+    class_pos[index.classifier_classes_] = np.arange(len(index.classifier_classes_))
+    cols = class_pos[code]
+    return np.where(cols >= 0, prob[inverse, np.maximum(cols, 0)], 0.0)
