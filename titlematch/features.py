@@ -43,9 +43,15 @@ class ContextTables:
         self.token = table.groupby("token")["weight"].sum()
 
 
+CONTEXT_PRIOR = 2.0  # pseudo-records pulling a context token's code share toward the title's overall share
+
+
 def _context_features(cands: pd.DataFrame, unit_tokens: pd.Series, ctx: ContextTables) -> pd.DataFrame:
-    """Mean over a unit's context tokens of the code's share: within the best key, and over all keys."""
-    exploded = cands[["row", "unit", "key", "code"]].merge(
+    """The code's share among records with the unit's most telling context token: within the best
+    key (``ctx_share``) and over all keys (``ctx_global``). Shares are shrunk toward the code's
+    overall share so that a token seen once does not decide, and the most telling token counts,
+    since words shared by every context (``school``) say nothing."""
+    exploded = cands[["row", "unit", "key", "code", "share", "code_prior_share"]].merge(
         unit_tokens.rename("token").explode().dropna().reset_index().rename(columns={"index": "unit"}), on="unit")
     if not len(exploded):
         return pd.DataFrame({"ctx_share": np.nan, "ctx_global": np.nan}, index=cands["row"])
@@ -53,10 +59,15 @@ def _context_features(cands: pd.DataFrame, unit_tokens: pd.Series, ctx: ContextT
     ktc = pd.MultiIndex.from_arrays([exploded["key"], exploded["token"], exploded["code"]])
     tc = pd.MultiIndex.from_arrays([exploded["token"], exploded["code"]])
     key_total = ctx.key_token.reindex(kt).to_numpy()
-    exploded["ctx_share"] = ctx.key_token_code.reindex(ktc).fillna(0).to_numpy() / key_total
-    exploded["ctx_global"] = (ctx.token_code.reindex(tc).fillna(0).to_numpy()
-                              / ctx.token.reindex(exploded["token"]).to_numpy())
-    return exploded.groupby("row")[["ctx_share", "ctx_global"]].mean()
+    known = ~np.isnan(key_total)
+    in_key = ctx.key_token_code.reindex(ktc).fillna(0).to_numpy()
+    exploded["ctx_share"] = np.where(known, (in_key + CONTEXT_PRIOR * exploded["share"])
+                                     / (np.nan_to_num(key_total) + CONTEXT_PRIOR), np.nan)
+    token_total = ctx.token.reindex(exploded["token"]).fillna(0).to_numpy()
+    in_all = ctx.token_code.reindex(tc).fillna(0).to_numpy()
+    exploded["ctx_global"] = np.where(token_total > 0, (in_all + CONTEXT_PRIOR * exploded["code_prior_share"])
+                                      / (token_total + CONTEXT_PRIOR), np.nan)
+    return exploded.groupby("row")[["ctx_share", "ctx_global"]].max()
 
 
 def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, units: pd.DataFrame,
@@ -133,15 +144,17 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands["row"] = np.arange(len(cands))
     tokens = units["context"].fillna("").map(context_tokens)
     tokens.index = np.arange(len(units))
+    code_total = np.asarray(index.key_codes_.sum(axis=0)).ravel()
+    cands["code_prior_share"] = code_total[cands["code"].to_numpy()] / code_total.sum()
     ctx_feats = _context_features(cands, tokens, ctx).reindex(cands["row"])
     cands["ctx_share"] = ctx_feats["ctx_share"].to_numpy()
     cands["ctx_global"] = ctx_feats["ctx_global"].to_numpy()
     has_context = tokens.map(len).to_numpy() > 0
     cands["has_context"] = has_context[cands["unit"].to_numpy()].astype(float)
     cands["ctx_known"] = cands["ctx_share"].notna().astype(float)
-    share_eff = np.where(cands["ctx_known"] > 0, 0.7 * cands["ctx_share"].fillna(0) + 0.3 * cands["share"],
-                         cands["share"])
-    cands["score"] = np.maximum(cands["strength"] * share_eff, 0.5 * cands["clf_prob"])
+    share_eff = np.where(cands["ctx_known"] > 0, cands["ctx_share"].fillna(0), cands["share"])
+    # similarity squared: a near neighbour must be very near to outrank an exact title's share
+    cands["score"] = np.maximum(cands["strength"] ** 2 * share_eff, 0.5 * cands["clf_prob"])
     cands[["ctx_share", "ctx_global"]] = cands[["ctx_share", "ctx_global"]].fillna(-1.0)
 
     cands = cands.sort_values(["unit", "score", "support", "code"], ascending=[True, False, False, True])
@@ -163,8 +176,7 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands.loc[cands["key"] < 0, ["ratio", "token_set_ratio", "partial_ratio", "jaro_winkler"]] = 0.0
 
     code_strings = index.codes_[cands["code"].to_numpy()]
-    code_total = np.asarray(index.key_codes_.sum(axis=0)).ravel()
-    cands["code_prior"] = np.log(code_total[cands["code"].to_numpy()] / code_total.sum())
+    cands["code_prior"] = np.log(cands["code_prior_share"])
     cands["log_key_weight"] = np.log1p(cands["key_weight"])
     cands["log_code_weight"] = np.log1p(cands["code_weight"])
     cands["official"] = [float((k, c) in official) for k, c in zip(key_text, code_strings)]

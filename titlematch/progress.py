@@ -36,4 +36,4 @@ class Summary:
         return f"titlematch {self.command}: " + ", ".join(parts)
 
     def print(self) -> None:
-        print(self.line(), file=sys.stderr if self.quiet else sys.stdout)
+        print(self.line())  # --quiet silences progress bars, never the summary

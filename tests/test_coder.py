@@ -1,0 +1,105 @@
+"""The title coder: candidates, context, unseen titles, estimator contract and the CLI."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.base import clone
+from sklearn.pipeline import Pipeline
+
+from titlematch.cli import main
+from titlematch.coder import TitleCoder
+from titlematch.codes import onet_classification
+from titlematch.features import FEATURES
+
+SOC = onet_classification("soc")  # O*NET-SOC 2019 table, SOC 2018 detailed level (O*NET database, CC BY 4.0)
+
+
+def _teachers():
+    # SOC 2018 codes for teachers by school level (SOC 2018 structure, from the O*NET table)
+    rows = ([("teacher", "25-2021", "elementary school")] * 30 + [("teacher", "25-2031", "high school")] * 25
+            + [("teacher", "25-2022", "middle school")] * 10 + [("driver", "53-3032", "trucking company")] * 20
+            + [("driver", "53-3052", "city bus company")] * 15 + [("line cook", "35-2014", "restaurant")] * 20)
+    return pd.DataFrame(rows, columns=["title", "code", "context"])
+
+
+def test_context_parts_the_same_title():
+    past = _teachers()
+    coder = TitleCoder().fit(past, past["code"], classification=SOC)
+    new = pd.DataFrame({"title": ["Teacher", "TEACHER", "teacher", "Driver", "driver"],
+                        "context": ["Elementary School", "high school", "middle school", "trucking", "bus company"]})
+    assert coder.predict(new).tolist() == ["25-2021", "25-2031", "25-2022", "53-3032", "53-3052"]
+
+
+def test_official_titles_and_unseen_titles_get_candidates_from_the_classifier():
+    past = _teachers()
+    coder = TitleCoder().fit(past, past["code"], classification=SOC)
+    feats = coder.features(pd.DataFrame({"title": ["registered nurses", "nurse registered staff"]}))
+    assert set(FEATURES) <= set(feats.columns)
+    first = feats[feats["record"] == 0].iloc[0]
+    assert first["code"] == "29-1141" and first["exact"] == 1.0 and first["official"] == 1.0
+    second = feats[feats["record"] == 1]
+    assert "29-1141" in second["code"].tolist()  # never seen in this word order
+    assert (second["clf_prob"] > 0).any()
+
+
+def test_spelling_correction_and_multi_role_primary():
+    past = _teachers()
+    coder = TitleCoder().fit(past, past["code"], classification=SOC)
+    feats = coder.features(pd.DataFrame({"title": ["line cokk", "line cook / dishwasher"], "context": ["", ""]}))
+    top = feats.groupby("record").first()
+    assert top.loc[0, "code"] == "35-2014" and top.loc[0, "spelling_changed"] == 1.0
+    assert top.loc[1, "code"] == "35-2014" and top.loc[1, "n_roles"] == 2.0
+
+
+def test_estimator_contract_and_pipeline():
+    past = _teachers()
+    coder = TitleCoder(max_candidates=5)
+    assert clone(coder).get_params()["max_candidates"] == 5
+    pipe = Pipeline([("coder", coder)]).fit(past[["title", "context"]], past["code"])
+    assert pipe.predict(past[["title", "context"]].head(3)).tolist() == ["25-2021"] * 3
+    proba = pipe.named_steps["coder"].predict_proba(past[["title", "context"]].head(2))
+    assert proba.shape == (2, len(pipe.named_steps["coder"].classes_))
+    np.testing.assert_allclose(proba.sum(axis=1), 1.0)
+
+
+def test_empty_and_missing_titles_stay_in_the_output():
+    past = _teachers()
+    coder = TitleCoder().fit(past, past["code"])
+    out = coder.code(pd.DataFrame({"title": ["", None, "teacher"], "context": ["", "", "high school"]}))
+    assert len(out) == 3 and out["code"].tolist()[:2] == ["", ""] and out["code"].iloc[2] == "25-2031"
+
+
+def test_cli_dictionary_then_code(tmp_path, capsys):
+    past = _teachers().assign(year=2024)
+    past.to_csv(tmp_path / "past.csv", index=False)
+    SOC.to_csv(tmp_path / "soc.csv", index=False)
+    bad = pd.DataFrame({"title": ["", "cook"], "code": ["35-2014", "99-9999"], "context": ["", ""], "year": [2024, 2024]})
+    bad.to_csv(tmp_path / "bad.csv", index=False)
+    assert main(["dictionary", str(tmp_path / "past.csv"), str(tmp_path / "bad.csv"), "--classification",
+                 str(tmp_path / "soc.csv"), "--out", str(tmp_path / "dict"), "--quiet"]) == 0
+    rejects = pd.read_csv(tmp_path / "dict" / "rejects.csv")
+    assert sorted(rejects["reason"]) == ["code not in the classification", "empty title"]
+    assert set(rejects["file"]) == {str(tmp_path / "bad.csv")}
+    new = pd.DataFrame({"id": [1, 2], "title": ["teacher", "Line Cook"], "context": ["high school", ""]})
+    new.to_csv(tmp_path / "new.csv", index=False)
+    assert main(["code", str(tmp_path / "new.csv"), "--dictionary", str(tmp_path / "dict"), "--out",
+                 str(tmp_path / "coded.csv"), "--quiet"]) == 0
+    coded = pd.read_csv(tmp_path / "coded.csv", dtype=str)
+    assert coded.columns[:3].tolist() == ["id", "title", "context"]
+    for col in ("title_normalized", "code", "code_title", "score", "code_2", "score_2", "code_3", "score_3"):
+        assert col in coded.columns
+    assert coded["code"].tolist() == ["25-2031", "35-2014"]
+    assert coded["code_title"].iloc[1] == "Cooks, Restaurant"
+    assert "titlematch code: rows in 2" in capsys.readouterr().out
+
+
+def test_cli_missing_column_names_file_and_columns(tmp_path, capsys):
+    past = _teachers()
+    past.to_csv(tmp_path / "past.csv", index=False)
+    assert main(["dictionary", str(tmp_path / "past.csv"), "--out", str(tmp_path / "d"), "--quiet"]) == 0
+    pd.DataFrame({"job": ["cook"]}).to_csv(tmp_path / "new.csv", index=False)
+    assert main(["code", str(tmp_path / "new.csv"), "--dictionary", str(tmp_path / "d"),
+                 "--out", str(tmp_path / "o.csv")]) == 2
+    err = capsys.readouterr().err
+    assert "new.csv" in err and "'title'" in err and "job" in err

@@ -1,0 +1,44 @@
+"""``titlematch feedback``: coders' decisions from a referral queue into a new dictionary version."""
+from __future__ import annotations
+
+import argparse
+
+ORDER = 62
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    p = subparsers.add_parser("feedback", help="add coders' decisions from a queue to the dictionary",
+                              description="Read coders' decisions back from a referral queue, validate the codes "
+                                          "against the catalogue, fan them out to the records they cover and write "
+                                          "an updated dictionary whose manifest records the provenance.")
+    p.add_argument("queue", metavar="QUEUE_FILE", help="the queue from 'titlematch queue', with coder_code filled in")
+    p.add_argument("--dictionary", required=True, metavar="DIR")
+    p.add_argument("--out", required=True, metavar="DIR2", help="the updated dictionary")
+    p.add_argument("--year", type=int, help="year the decisions belong to (default: the dictionary's newest + 1)")
+    return p
+
+
+def run(args) -> int:
+    from pathlib import Path
+
+    from ..coder import TitleCoder
+    from ..io import Rejects, read_table
+    from ..progress import Summary
+    from ..review import apply_feedback, read_decisions
+
+    summary = Summary("feedback", args.quiet)
+    coder = TitleCoder.load(args.dictionary)
+    rejects = Rejects()
+    queue = read_table(args.queue, rejects=rejects)
+    decisions = read_decisions(queue, coder.dictionary_, source=str(args.queue), rejects=rejects)
+    year = args.year if args.year is not None else coder.dictionary_.reference_year + 1
+    updated = apply_feedback(coder.dictionary_, decisions, year=year)
+    updated.rejects = rejects  # this version's rejects: the queue rows refused
+    TitleCoder.from_dictionary(updated, **{k: v for k, v in coder.get_params().items()
+                                           if k not in ("half_life", "code_level")}).save(args.out)
+    summary.set(queue_rows=len(queue), decisions=len(decisions), records_added=int(decisions["records"].sum()),
+                rejected=len(rejects.rows()))
+    summary.print()
+    if len(rejects):
+        print(f"refused queue rows with reasons: {Path(args.out) / 'rejects.csv'}")
+    return 0

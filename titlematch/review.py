@@ -1,0 +1,162 @@
+"""The human side of the loop: referral queues, coders' decisions back, disagreements.
+
+A referral queue has one row per distinct normalized title among the referred records,
+with how many records it covers, the top three candidate codes with their official titles
+and confidences, and empty columns for the coder's code and remark. Coders' decisions come
+back through ``apply_feedback``, which validates them and adds them to the dictionary as a
+new, provenance-stamped version. ``disagreements`` lists records whose manual code the model
+contradicts with high confidence: the review-first mode before an office trusts automation.
+"""
+from __future__ import annotations
+
+import re
+
+import numpy as np
+import pandas as pd
+
+from .dictionary import TitleDictionary
+from .io import ROW_COLUMN, InputError, Rejects, require_columns
+
+QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context",
+                 "code", "code_title", "confidence", "code_2", "code_2_title", "confidence_2",
+                 "code_3", "code_3_title", "confidence_3", "coder_code", "coder_remark"]
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def escape_formula(value):
+    """Prefix a text cell that a spreadsheet would run as a formula with an apostrophe
+    (OWASP guidance on CSV injection: cells starting with =, +, -, @, tab or carriage return)."""
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
+
+
+def unescape_formula(value):
+    if isinstance(value, str) and len(value) > 1 and value[0] == "'" and value[1] in "=+-@\t\r":
+        return value[1:]
+    return value
+
+
+def escape_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    out = frame.copy()
+    for col in out.columns:
+        if out[col].dtype == object:
+            out[col] = out[col].map(escape_formula)
+    out.columns = [escape_formula(str(c)) for c in out.columns]
+    return out
+
+
+def referral_queue(coded: pd.DataFrame, code_titles: dict | None = None, *, title_col: str = "title",
+                   referred_only: bool = True) -> pd.DataFrame:
+    """One row per distinct normalized title among the referred records, most work first.
+
+    Order: records covered x uncertainty (1 - confidence; 1 - score without a model), so the
+    coders' first hour goes where it settles the most records.
+    """
+    require_columns(coded, ("title_normalized", "code"), "coded file")
+    work = coded
+    if referred_only and "decision" in coded.columns:
+        work = coded[coded["decision"].astype(str) == "refer"]
+    work = work[work["title_normalized"].astype(str) != ""]
+    titles = code_titles or {}
+    conf_col = "confidence" if "confidence" in work.columns else "score"
+    if not len(work):
+        return pd.DataFrame(columns=QUEUE_COLUMNS)
+    numeric = {c: pd.to_numeric(work[c], errors="coerce") for c in
+               (conf_col, f"{conf_col}_2", f"{conf_col}_3") if c in work.columns}
+    work = work.assign(**{c: v for c, v in numeric.items()})
+    groups = work.groupby("title_normalized", sort=True)
+    first = groups.first()
+    out = pd.DataFrame({"title_normalized": first.index, "records": groups.size().to_numpy()})
+    out["example_title"] = first[title_col].to_numpy() if title_col in first.columns else ""
+    if "context" in work.columns:
+        contexts = groups["context"].agg(lambda s: "; ".join(s[s.astype(str) != ""].value_counts().index[:3]))
+        out["context"] = contexts.to_numpy()
+    else:
+        out["context"] = ""
+    for pos, suffix in ((1, ""), (2, "_2"), (3, "_3")):
+        code = first.get("code" + suffix, pd.Series("", index=first.index)).fillna("").astype(str)
+        out["code" + suffix] = code.to_numpy()
+        label = "code_title" if pos == 1 else f"code{suffix}_title"
+        out[label] = [titles.get(c, "") for c in code]
+        if pos == 1 and "code_title" in first.columns and not titles:
+            out[label] = first["code_title"].fillna("").to_numpy()
+        conf = first.get(conf_col + suffix)
+        out["confidence" + suffix] = conf.to_numpy() if conf is not None else np.nan
+    uncertainty = 1 - out["confidence"].fillna(0).clip(0, 1)
+    out["priority"] = out["records"] * uncertainty
+    out = out.sort_values(["priority", "records", "title_normalized"], ascending=[False, False, True])
+    out = out.drop(columns="priority").reset_index(drop=True)
+    out.insert(0, "queue_id", np.arange(1, len(out) + 1))
+    out["coder_code"] = ""
+    out["coder_remark"] = ""
+    return out[QUEUE_COLUMNS]
+
+
+def read_decisions(queue: pd.DataFrame, dictionary: TitleDictionary, *, source: str = "queue",
+                   rejects: Rejects | None = None) -> pd.DataFrame:
+    """Validated coders' decisions: ``title_normalized, context, code, records`` for rows with a
+    ``coder_code``; invalid codes and malformed rows go to ``rejects`` with the reason."""
+    rejects = rejects if rejects is not None else Rejects()
+    queue = queue.copy()
+    queue.columns = [unescape_formula(str(c)) for c in queue.columns]
+    require_columns(queue, ("title_normalized", "records", "coder_code"), source)
+    if ROW_COLUMN not in queue.columns:
+        queue[ROW_COLUMN] = np.arange(2, len(queue) + 2)
+    for col in queue.columns:
+        if queue[col].dtype == object:
+            queue[col] = queue[col].map(unescape_formula)
+    decided = queue[queue["coder_code"].fillna("").astype(str).str.strip() != ""].copy()
+    decided["coder_code"] = decided["coder_code"].astype(str).str.strip()
+    known = set(dictionary.catalogue["code"]) or set(dictionary.entries["code"])
+    pattern = re.compile(dictionary.code_pattern)
+    records = pd.to_numeric(decided["records"], errors="coerce")
+    ok = pd.Series(True, index=decided.index)
+    for idx, row in decided.iterrows():
+        code, n = row["coder_code"], records[idx]
+        reason = None
+        if not pattern.match(code):
+            reason = f"code {code!r} does not match {dictionary.code_pattern}"
+        elif known and code not in known:
+            reason = f"code {code!r} is not in the dictionary's catalogue"
+        elif not (n >= 1 and float(n).is_integer()):
+            reason = f"records must be a whole number >= 1, got {row['records']!r}"
+        elif not str(row["title_normalized"]).strip():
+            reason = "empty title_normalized"
+        if reason:
+            rejects.add(source, int(row[ROW_COLUMN]), "coder_code", reason, code)
+            ok[idx] = False
+    decided = decided[ok]
+    context = decided["context"].fillna("").astype(str).str.split("; ").str[0] if "context" in decided else ""
+    return pd.DataFrame({"title_normalized": decided["title_normalized"].astype(str).to_numpy(),
+                         "context": np.asarray(context, dtype=object) if len(decided) else [],
+                         "code": decided["coder_code"].to_numpy(),
+                         "records": records[ok].astype(int).to_numpy()})
+
+
+def apply_feedback(dictionary: TitleDictionary, decisions: pd.DataFrame, *, year: int | None = None,
+                   source: str = "coder review") -> TitleDictionary:
+    """Fan each decision out to the records it covers and add them as a new dictionary version."""
+    fanned = decisions.loc[decisions.index.repeat(decisions["records"])]
+    records = pd.DataFrame({"title": fanned["title_normalized"].to_numpy(), "code": fanned["code"].to_numpy(),
+                            "context": fanned["context"].to_numpy()})
+    if year is not None:
+        records["year"] = str(int(year))
+    records.attrs["source_file"] = f"coder review{'' if year is None else f' {year}'}"
+    return dictionary.update(records, source=source)
+
+
+def disagreements(coded: pd.DataFrame, manual_col: str, *, min_confidence: float = 0.9) -> pd.DataFrame:
+    """Records whose manual code differs from a model code held with at least ``min_confidence``,
+    most confident first, with the model's confidence in the manual code when it was a candidate."""
+    require_columns(coded, (manual_col, "code", "confidence"), "coded file")
+    manual = coded[manual_col].fillna("").astype(str).str.strip()
+    conf = pd.to_numeric(coded["confidence"], errors="coerce").fillna(0)
+    manual_conf = pd.Series(np.nan, index=coded.index)
+    for suffix in ("_2", "_3"):
+        if f"code{suffix}" in coded.columns:
+            hit = coded[f"code{suffix}"].astype(str) == manual
+            manual_conf = manual_conf.where(~hit, pd.to_numeric(coded[f"confidence{suffix}"], errors="coerce"))
+    mask = (manual != "") & (coded["code"].astype(str) != manual) & (conf >= min_confidence)
+    out = coded[mask].assign(manual_code_confidence=manual_conf[mask])
+    return out.sort_values("confidence", ascending=False, kind="stable").reset_index(drop=True)
