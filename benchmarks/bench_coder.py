@@ -31,7 +31,7 @@ def peer_model():
     """The published method: TF-IDF word 1-2-grams + character 4-grams into logistic regression."""
     features = make_union(TfidfVectorizer(analyzer="word", ngram_range=(1, 2), sublinear_tf=True, min_df=1),
                           TfidfVectorizer(analyzer="char_wb", ngram_range=(4, 4), sublinear_tf=True, min_df=1))
-    return make_pipeline(features, LogisticRegression(C=10.0, max_iter=300))
+    return make_pipeline(features, LogisticRegression(C=10.0, max_iter=100))
 
 
 def main(argv=None) -> int:

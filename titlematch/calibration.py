@@ -35,7 +35,7 @@ class CalibrationResult:
 
 
 def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accuracy: float | None = None,
-              n_boot: int = 500, random_state: int = 0, max_units: int = 40_000) -> CalibrationResult:
+              n_boot: int = 500, random_state: int = 0, max_units: int = 20_000) -> CalibrationResult:
     """Learn a confidence model for ``coder`` and choose its threshold.
 
     ``gold`` has ``title`` [, ``context``], ``code`` (expert) and optionally ``manual_code``.
@@ -78,7 +78,7 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     report = {
         "label_source": model.source_, "evaluated_on": evaluated_on, "records": int(len(top)),
         "base_model": model.base_name_, "cv_log_loss": model.cv_log_loss_,
-        "calibration": model.calibration_["method"],
+        "calibration": {part: cal["method"] for part, cal in model.calibration_.items()},
         "ece_15_bins": expected_calibration_error(correct, conf, n_bins=15),
         "brier": brier_score(correct, conf), "log_loss": log_loss(correct, np.clip(conf, 1e-6, 1 - 1e-6)),
         "accuracy_top": float(correct.mean()) if len(correct) else float("nan"),

@@ -26,6 +26,7 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import log_loss
 from sklearn.model_selection import GroupKFold
 from sklearn.preprocessing import StandardScaler
+from threadpoolctl import threadpool_limits
 
 from .artefact import load_artefact, save_artefact
 from .features import FEATURES
@@ -59,9 +60,12 @@ class _Trees:
     name = "gradient_boosting"
 
     def fit(self, X, y, w):
-        model = HistGradientBoostingClassifier(max_iter=150, learning_rate=0.1, max_leaf_nodes=15,
+        model = HistGradientBoostingClassifier(max_iter=100, learning_rate=0.1, max_leaf_nodes=15,
                                                min_samples_leaf=40, l2_regularization=1.0, random_state=0,
-                                               early_stopping=False).fit(X, y, sample_weight=w)
+                                               early_stopping=False)
+        # one thread: identical results on any machine, and no OpenMP oversubscription on a busy one
+        with threadpool_limits(1):
+            model.fit(X, y, sample_weight=w)
         self.model = model
         self.arrays = _export_trees(model)
         return self
@@ -140,10 +144,28 @@ def platt_scaling(raw: np.ndarray, y: np.ndarray, w: np.ndarray | None = None) -
 
 
 def apply_calibration(cal: dict, raw: np.ndarray) -> np.ndarray:
+    if cal["method"] == "identity":
+        return expit(raw)
     if cal["method"] == "isotonic":
         return np.interp(raw, cal["x"], cal["y"])
     a, b = cal["x"]
     return expit(-(a * raw + b))
+
+
+def fit_maps(raw: np.ndarray, y: np.ndarray, w: np.ndarray | None, top: np.ndarray, method: str) -> dict:
+    """One map for each record's first candidate (the confidence that decides) and one for the
+    others: a first candidate with a given raw score is right more often than a runner-up with it."""
+    maps = {"top": fit_calibration(raw[top], y[top], None if w is None else w[top], method)}
+    rest = ~top
+    if rest.any() and 0 < y[rest].sum() < rest.sum():
+        maps["rest"] = fit_calibration(raw[rest], y[rest], None if w is None else w[rest], method)
+    else:
+        maps["rest"] = maps["top"]
+    return maps
+
+
+def apply_maps(maps: dict, raw: np.ndarray, top: np.ndarray) -> np.ndarray:
+    return np.where(top, apply_calibration(maps["top"], raw), apply_calibration(maps["rest"], raw))
 
 
 # ---------------------------------------------------------------- the model
@@ -174,7 +196,7 @@ class ConfidenceModel(BaseEstimator):
     True
     """
 
-    def __init__(self, models=("logistic", "gradient_boosting"), calibration: str = "auto", n_folds: int = 5,
+    def __init__(self, models=("logistic", "gradient_boosting"), calibration: str = "auto", n_folds: int = 3,
                  threshold: float = 0.97, random_state: int = 0):
         self.models = models
         self.calibration = calibration
@@ -207,8 +229,9 @@ class ConfidenceModel(BaseEstimator):
             self.cv_log_loss_[name] = float(log_loss(y, np.clip(expit(raw), 1e-9, 1 - 1e-9), sample_weight=w))
         self.base_name_ = min(self.cv_log_loss_, key=self.cv_log_loss_.get)
         self.base_arrays_ = _MODELS[self.base_name_]().fit(M, y, w).arrays
-        self.calibration_ = fit_calibration(oof[self.base_name_], y, w, self.calibration)
-        self.oof_confidence_ = apply_calibration(self.calibration_, oof[self.base_name_])
+        top = _top_rows(X)
+        self.calibration_ = fit_maps(oof[self.base_name_], y, w, top, self.calibration)
+        self.oof_confidence_ = apply_maps(self.calibration_, oof[self.base_name_], top)
         self.source_ = "self-supervised"
         self.threshold_ = self.threshold
         return self
@@ -227,7 +250,8 @@ class ConfidenceModel(BaseEstimator):
                              "u": np.array([ecm.u_probs[n].get(1, 1e-6) for n in names]),
                              "prior": np.array([ecm.p])}
         self.cv_log_loss_ = {}
-        self.calibration_ = {"method": "identity", "x": np.array([]), "y": np.array([])}
+        identity = {"method": "identity", "x": np.array([]), "y": np.array([])}
+        self.calibration_ = {"top": identity, "rest": identity}
         self.source_ = "unsupervised (Fellegi-Sunter EM): less reliable until re-fitted on labels"
         self.threshold_ = self.threshold
         return self
@@ -249,17 +273,18 @@ class ConfidenceModel(BaseEstimator):
         groups = np.arange(len(y)) if groups is None else np.asarray(groups)
         method = method or self.calibration
         oof = np.zeros(len(y))
-        n_splits = min(self.n_folds, len(np.unique(groups)))
+        top = _top_rows(X)
+        n_splits = min(max(self.n_folds, 5), len(np.unique(groups)))
         for train, test in GroupKFold(n_splits=n_splits).split(raw, y, groups):
-            oof[test] = apply_calibration(fit_calibration(raw[train], y[train], None, method), raw[test])
-        self.calibration_ = fit_calibration(raw, y, None, method)
+            maps = fit_maps(raw[train], y[train], None, top[train], method)
+            oof[test] = apply_maps(maps, raw[test], top[test])
+        self.calibration_ = fit_maps(raw, y, None, top, method)
         self.oof_confidence_ = oof
         self.source_ = "gold sample"
         return self
 
     def predict_proba(self, X: pd.DataFrame) -> np.ndarray:
-        raw = self._raw(X)
-        p = expit(raw) if self.calibration_["method"] == "identity" else apply_calibration(self.calibration_, raw)
+        p = apply_maps(self.calibration_, self._raw(X), _top_rows(X))
         return np.column_stack([1 - p, p])
 
     def score_candidates(self, cands: pd.DataFrame) -> pd.DataFrame:
@@ -279,10 +304,11 @@ class ConfidenceModel(BaseEstimator):
     def save(self, directory: str | os.PathLike, *, report: dict | None = None,
              tables: dict[str, pd.DataFrame] | None = None) -> Path:
         arrays = {f"base_{k}": v for k, v in self.base_arrays_.items()}
-        arrays["calibration_x"] = np.asarray(self.calibration_["x"], dtype=np.float64)
-        arrays["calibration_y"] = np.asarray(self.calibration_["y"], dtype=np.float64)
+        for part, cal in self.calibration_.items():
+            arrays[f"calibration_{part}_x"] = np.asarray(cal["x"], dtype=np.float64)
+            arrays[f"calibration_{part}_y"] = np.asarray(cal["y"], dtype=np.float64)
         meta = {"params": self.get_params() | {"models": list(self.models)}, "base_model": self.base_name_,
-                "features": FEATURES, "calibration": self.calibration_["method"], "threshold": self.threshold_,
+                "features": FEATURES, "calibration": {k: v["method"] for k, v in self.calibration_.items()}, "threshold": self.threshold_,
                 "cv_log_loss": self.cv_log_loss_, "label_source": self.source_, "report": report or {}}
         save_artefact(directory, KIND, tables or {}, arrays=arrays, meta=meta)
         return Path(directory)
@@ -298,13 +324,22 @@ class ConfidenceModel(BaseEstimator):
         self = cls(**params)
         self.base_name_ = meta["base_model"]
         self.base_arrays_ = {k[len("base_"):]: v for k, v in art.arrays.items() if k.startswith("base_")}
-        self.calibration_ = {"method": meta["calibration"], "x": art.arrays["calibration_x"],
-                             "y": art.arrays["calibration_y"]}
+        self.calibration_ = {part: {"method": method, "x": art.arrays[f"calibration_{part}_x"],
+                                    "y": art.arrays[f"calibration_{part}_y"]}
+                             for part, method in meta["calibration"].items()}
         self.threshold_ = float(meta["threshold"])
         self.cv_log_loss_ = meta.get("cv_log_loss", {})
         self.source_ = meta.get("label_source", "")
         self.report_ = meta.get("report", {})
         return self
+
+
+def _top_rows(X: pd.DataFrame) -> np.ndarray:
+    """The calibration map is fitted on each record's first candidate: the confidence that decides
+    accept or refer. The base model, trained on all candidates, already ranks the others."""
+    if "rank" not in X.columns:
+        return np.ones(len(X), dtype=bool)
+    return X["rank"].to_numpy() == 1
 
 
 def consistent(prob: np.ndarray, groups: np.ndarray) -> np.ndarray:

@@ -15,8 +15,8 @@ from .coder import TitleCoder
 from .dictionary import UNDATED, TitleDictionary
 
 
-def history_labels(dictionary: TitleDictionary, *, max_units: int = 40_000, random_state: int = 0,
-                   coder_params: dict | None = None) -> pd.DataFrame:
+def history_labels(dictionary: TitleDictionary, *, max_units: int = 20_000, max_rank: int = 5,
+                   random_state: int = 0, coder_params: dict | None = None) -> pd.DataFrame:
     """Candidate features of held-out past records with ``label`` (candidate = recorded code),
     ``weight`` (records the unit stands for) and ``record`` (the unit, for grouped folds)."""
     rng = np.random.default_rng(random_state)
@@ -40,6 +40,7 @@ def history_labels(dictionary: TitleDictionary, *, max_units: int = 40_000, rand
         raise ValueError("the dictionary is too small to hold records out for training the confidence model")
     coder = TitleCoder.from_dictionary(base, **(coder_params or {}))
     feats = coder.features(pd.DataFrame({"title": test["key"], "context": test["context"]}))
+    feats = feats[feats["rank"] <= max_rank].reset_index(drop=True)  # the rows that decide; keeps training quick
     feats["label"] = (feats["code"].to_numpy() == test["code"].to_numpy()[feats["record"].to_numpy()]).astype(int)
     feats["weight"] = test["count"].to_numpy()[feats["record"].to_numpy()]
     return feats
