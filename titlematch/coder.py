@@ -118,22 +118,23 @@ class TitleCoder(BaseEstimator):
 
     # ---------------------------------------------------------------- coding
     def _units(self, frame: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray, pd.DataFrame]:
-        """Normalize titles and reduce them to distinct (key, context) units."""
-        titles = frame["title"]
-        normalized = normalize_titles(titles)
+        """Normalize titles and reduce them to distinct units: everything a title's code depends on
+        (key, primary role, number of roles and of normalizer changes, context), so that a record is
+        coded the same whatever else is in its batch."""
+        normalized = normalize_titles(frame["title"])
         normalized.index = range(len(frame))
-        context = frame["context"].fillna("").astype(str).to_numpy() if "context" in frame.columns else np.full(len(frame), "")
-        units = pd.DataFrame({"key": normalized["key"].to_numpy(), "context": context})
-        uniq = units.drop_duplicates().reset_index(drop=True)
-        unit_of_row = pd.MultiIndex.from_frame(uniq).get_indexer(pd.MultiIndex.from_frame(units))
-        info = normalized.groupby("key", sort=False).first()
-        keys = uniq["key"]
-        corrected, spelled = self._correct(keys.unique())
-        uniq["corrected"] = keys.map(corrected)
-        uniq["spelling_changed"] = keys.map(spelled).astype(float)
-        uniq["primary"] = keys.map(info["primary"]).fillna("")
-        uniq["n_roles"] = keys.map(info["roles"].str.count(r"\|") + 1).fillna(1)
-        uniq["n_changes"] = keys.map(info["changes"].map(lambda c: len(c.split("; ")) if c else 0)) + uniq["spelling_changed"]
+        context = (frame["context"].fillna("").astype(str).to_numpy() if "context" in frame.columns
+                   else np.full(len(frame), ""))
+        changes = normalized["changes"].map(lambda c: len(c.split("; ")) if c else 0)
+        rows = pd.DataFrame({"key": normalized["key"].to_numpy(), "primary": normalized["primary"].fillna("").to_numpy(),
+                             "n_roles": (normalized["roles"].str.count(r"\|") + 1).to_numpy(dtype=float),
+                             "n_changes": changes.to_numpy(dtype=float), "context": context})
+        uniq = rows.drop_duplicates().reset_index(drop=True)
+        unit_of_row = pd.MultiIndex.from_frame(uniq).get_indexer(pd.MultiIndex.from_frame(rows))
+        corrected, spelled = self._correct(uniq["key"].unique())
+        uniq["corrected"] = uniq["key"].map(corrected)
+        uniq["spelling_changed"] = uniq["key"].map(spelled).astype(float)
+        uniq["n_changes"] = uniq["n_changes"] + uniq["spelling_changed"]
         return uniq, unit_of_row, normalized
 
     def _correct(self, keys) -> tuple[dict, dict]:
@@ -159,7 +160,8 @@ class TitleCoder(BaseEstimator):
     def _unit_candidates(self, units: pd.DataFrame) -> pd.DataFrame:
         live = units[units["key"] != ""]
         if not len(live):
-            return pd.DataFrame(columns=["unit", "code", "key"] + FEATURES)
+            empty = {"unit": pd.Series(dtype="int64"), "code": pd.Series(dtype=object), "key": pd.Series(dtype=object)}
+            return pd.DataFrame(empty | {f: pd.Series(dtype=float) for f in FEATURES})
         cands = candidate_features(self.index_, self.context_, self.official_, live.reset_index(drop=True),
                                    self.max_candidates)
         cands["unit"] = live.index.to_numpy()[cands["unit"].to_numpy()]

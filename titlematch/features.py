@@ -76,11 +76,14 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     ``n_changes``, ``spelling_changed``, ``n_roles``). Returns one row per (unit, code), best first,
     with ``unit`` (position in ``units``), ``code`` (string), ``key`` (best dictionary key) and FEATURES.
     """
-    queries = pd.Index(units["corrected"].unique())
-    q_of_unit = queries.get_indexer(units["corrected"])
-    originals = units.groupby(q_of_unit)["key"].first().reindex(range(len(queries))).to_numpy()
-    primaries = units.groupby(q_of_unit)["primary"].first().reindex(range(len(queries))).to_numpy()
-    qtext = queries.to_numpy(dtype=object)
+    # one query per distinct (key, primary role): what a title's candidates are never depends on the other
+    # titles in the batch, so output does not depend on how a file is cut into chunks
+    per_query = units.drop_duplicates(["key", "primary"]).reset_index(drop=True)
+    queries = pd.MultiIndex.from_frame(per_query[["key", "primary"]])
+    q_of_unit = queries.get_indexer(pd.MultiIndex.from_frame(units[["key", "primary"]]))
+    originals = per_query["key"].to_numpy(dtype=object)
+    primaries = per_query["primary"].to_numpy(dtype=object)
+    qtext = per_query["corrected"].to_numpy(dtype=object)
 
     pairs = [index.neighbours(qtext, "char"), index.neighbours(qtext, "word")]
     exact_orig = index.exact(originals).assign(exact=1.0)

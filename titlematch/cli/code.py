@@ -1,7 +1,19 @@
-"""``titlematch code``: code new job titles against a dictionary (and a confidence model)."""
+"""``titlematch code``: code new job titles against a dictionary (and a confidence model).
+
+The file is streamed in chunks through :func:`titlematch.runner.run_chunked`, so memory stays
+flat, an interrupted run resumes, and ``--engine dask`` spreads chunks over a cluster with the
+dictionary shipped to each worker once. Coding a title depends only on its own text and
+context, so the output is the same however the file is cut into chunks.
+"""
 from __future__ import annotations
 
 import argparse
+import json
+from pathlib import Path
+
+import pandas as pd
+
+from ._run import add_run_arguments, run_arguments
 
 ORDER = 30
 
@@ -16,42 +28,65 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="FILE", help="output CSV or Parquet (by suffix)")
     p.add_argument("--title-col", default="title")
     p.add_argument("--context-col", default="context")
-    p.add_argument("--features", metavar="FILE", help="also write every candidate's features here")
+    p.add_argument("--features", metavar="FILE", help="also write every candidate's features here (reads FILE whole)")
     p.add_argument("--threshold", type=float, help="override the model's acceptance threshold")
+    add_run_arguments(p)
     return p
 
 
+class CodeStep:
+    """The per-chunk step: every input column plus the coder's columns. Loaded once per process."""
+
+    def __init__(self, dictionary: str, model: str | None, title_col: str, context_col: str,
+                 threshold: float | None = None):
+        from ..coder import TitleCoder
+        self.coder = TitleCoder.load(dictionary)
+        self.model = None
+        if model:
+            from ..confidence import ConfidenceModel
+            self.model = ConfidenceModel.load(model)
+            if threshold is not None:
+                self.model.threshold_ = threshold
+        self.title_col, self.context_col = title_col, context_col
+
+    def __call__(self, frame: pd.DataFrame) -> pd.DataFrame:
+        work = frame.rename(columns={self.title_col: "title", self.context_col: "context"})
+        coded = self.coder.code(work, confidence=self.model)
+        return coded.rename(columns={"title": self.title_col, "context": self.context_col})
+
+
+def _manifest_digest(directory: str | None) -> str:
+    if not directory:
+        return ""
+    path = Path(directory) / "manifest.json"
+    return json.dumps(json.loads(path.read_text(encoding="utf-8"))["files"], sort_keys=True) if path.is_file() else ""
+
+
 def run(args) -> int:
-    from ..coder import TitleCoder
-    from ..io import read_table, rejects_path_for, Rejects, write_table
+    from ..io import read_table, write_table
     from ..progress import Summary
+    from ..runner import run_chunked
 
     summary = Summary("code", args.quiet)
-    coder = TitleCoder.load(args.dictionary)
-    model = _load_model(args)
-    rejects = Rejects()
-    frame = read_table(args.file, required=(args.title_col,), rejects=rejects)
-    work = frame.rename(columns={args.title_col: "title", args.context_col: "context"})
-    coded = coder.code(work, confidence=model)
-    coded = coded.rename(columns={"title": args.title_col, "context": args.context_col})
-    write_table(coded, args.out)
-    if args.features:
-        write_table(coder.features(work), args.features)
-    rejects.write(rejects_path_for(args.out))
-    counts = {"rows_in": len(frame) + len(rejects.rows()), "coded": int((coded["code"] != "").sum())}
-    if model is not None:
-        counts |= {"accepted": int((coded["decision"] == "accept").sum()),
-                   "referred": int((coded["decision"] == "refer").sum())}
-    summary.set(**counts, rejected=len(rejects.rows()))
+    step = CodeStep(args.dictionary, args.model, args.title_col, args.context_col, args.threshold)
+    options = {"command": "code", "dictionary": _manifest_digest(args.dictionary),
+               "model": _manifest_digest(args.model), "title_col": args.title_col,
+               "context_col": args.context_col, "threshold": args.threshold}
+    result = run_chunked(args.file, args.out, step, required=[args.title_col], options=options,
+                         desc="code titles", **run_arguments(args))
+    counts = {"rows_in": result.rows_in, "coded": result.rows_out}
+    if step.model is not None:
+        decisions = pd.read_parquet(result.output, columns=["decision"]) if str(result.output).endswith(
+            (".parquet", ".pq")) else pd.read_csv(result.output, usecols=["decision"], dtype=str)
+        counts |= {"accepted": int((decisions["decision"] == "accept").sum()),
+                   "referred": int((decisions["decision"] == "refer").sum())}
+    counts["rejected"] = result.rows_rejected
+    if result.resumed_from:
+        counts["chunks_resumed"] = result.resumed_from
+    summary.set(**counts)
     summary.print()
+    if args.features:
+        frame = read_table(args.file, required=(args.title_col,), encoding=args.encoding)
+        work = frame.rename(columns={args.title_col: "title", args.context_col: "context"})
+        write_table(step.coder.features(work), args.features)
     return 0
-
-
-def _load_model(args):
-    if not args.model:
-        return None
-    from ..confidence import ConfidenceModel
-    model = ConfidenceModel.load(args.model)
-    if args.threshold is not None:
-        model.threshold_ = args.threshold
-    return model

@@ -13,6 +13,7 @@ numbers and words shorter than ``min_length`` are never changed.
 from __future__ import annotations
 
 import os
+import zlib
 from collections.abc import Mapping
 from pathlib import Path
 
@@ -51,6 +52,13 @@ def _inflections(word: str) -> tuple[str, ...]:
             forms.append(word[:-3] + "y")
     return tuple(forms)
 
+
+
+def _stable_hash(text: str) -> int:
+    """CRC-32 of the text: the same in every process (Python's ``hash`` of a string is salted per
+    process, so an index built with it is wrong after the corrector moves to a Dask worker).
+    A collision only adds a candidate, which the distance check then rejects."""
+    return zlib.crc32(text.encode("utf-8"))
 
 class SpellingCorrector:
     """Correct misspelled title words against a vocabulary of known words with frequencies.
@@ -125,7 +133,7 @@ class SpellingCorrector:
         ids: list[int] = []
         for index, word in enumerate(targets):
             deletes = _deletes(word[:PREFIX_LENGTH], self.max_distance)
-            hashes.extend(map(hash, deletes))
+            hashes.extend(map(_stable_hash, deletes))
             ids.extend([index] * len(deletes))
         hashes_array = np.array(hashes, dtype=np.int64)
         order = np.argsort(hashes_array, kind="stable")
@@ -174,7 +182,7 @@ class SpellingCorrector:
 
     def _candidate_words(self, word: str) -> list[str]:
         deletes = _deletes(word[:PREFIX_LENGTH], self.max_distance)
-        wanted = np.fromiter(map(hash, deletes), dtype=np.int64, count=len(deletes))
+        wanted = np.fromiter(map(_stable_hash, deletes), dtype=np.int64, count=len(deletes))
         lo = np.searchsorted(self._hashes, wanted, side="left")
         hi = np.searchsorted(self._hashes, wanted, side="right")
         hits = [self._ids[a:b] for a, b in zip(lo, hi) if b > a]
