@@ -50,7 +50,8 @@ def test_context_counts_part_a_title_by_context():
 def test_context_tokens_for_naics_codes_are_hierarchy_prefixes():
     # NAICS structure (U.S. Census Bureau): 2-digit sector, 3-digit subsector, 4-digit industry group
     assert context_tokens("611110") == ["naics:61", "naics:611", "naics:6111"]
-    assert context_tokens("The Elementary School") == ["elementary", "school"]
+    # a free-text context gives its words plus the whole description as one more token
+    assert context_tokens("The Elementary School") == ["elementary", "school", "=elementary_school"]
     assert context_tokens(" ".join(context_tokens("611110"))) == context_tokens("611110")
 
 

@@ -45,6 +45,34 @@ def _restore_tfidf(make, vocabulary: pd.DataFrame, idf: np.ndarray) -> TfidfVect
     return vec
 
 
+MIN_WORD_COUNT = 2      # a word seen once may itself be a misspelling: it is not trusted as correct
+RARE_WORD_COUNT = 20    # below this, a word one edit from a far more frequent word is a misspelling
+MISSPELLING_RATIO = 50  # ... when that word is this many times more frequent
+
+
+def _corrector(dictionary: TitleDictionary) -> SpellingCorrector:
+    """The spelling corrector over the dictionary's own words.
+
+    Past records hold misspellings too, and a misspelling repeated a few times must not become a
+    "known word" that is never corrected. So words seen once, and rare words one edit away from a
+    word at least 50 times as frequent, are left out of what counts as correct (the frequency-ratio
+    rule of symmetric-delete spelling correction). The exact title is still searched as written,
+    so a rare but real word loses nothing.
+    """
+    vocabulary = dictionary.vocabulary
+    vocabulary = vocabulary[vocabulary >= MIN_WORD_COUNT]
+    frequent = SpellingCorrector(max_distance=1).fit(vocabulary[vocabulary >= RARE_WORD_COUNT])
+    suspects = []
+    for word, count in vocabulary[vocabulary < RARE_WORD_COUNT].items():
+        if len(word) < frequent.min_length:
+            continue
+        near = frequent.candidates(word)
+        near = near[(near["distance"] == 1) & (near["word"] != word)]
+        if len(near) and near["count"].iloc[0] >= MISSPELLING_RATIO * count:
+            suspects.append(word)
+    return SpellingCorrector().fit(vocabulary.drop(suspects))
+
+
 def top_k_sparse(scores: sp.csr_matrix, k: int, min_score: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Rows, columns and values of the ``k`` largest entries of each row of a CSR matrix."""
     scores = scores.tocsr()
@@ -94,7 +122,7 @@ class TitleIndex:
         self.word_vectorizer_ = _word_vectorizer().fit(self.keys_)
         self._fit_key_matrices()
         self._fit_classifier(entries)
-        self.corrector_ = SpellingCorrector().fit(dictionary.vocabulary)
+        self.corrector_ = _corrector(dictionary)
         return self
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
@@ -174,7 +202,7 @@ class TitleIndex:
                                                arrays["classifier_coef_indptr"]), shape=shape)
         self.classifier_intercept_ = arrays["classifier_intercept"]
         self.classifier_classes_ = arrays["classifier_classes"]
-        self.corrector_ = SpellingCorrector().fit(dictionary.vocabulary)
+        self.corrector_ = _corrector(dictionary)
         return self
 
     # ---------------------------------------------------------------- searching

@@ -45,7 +45,12 @@ def context_tokens(text: str) -> list[str]:
         return []
     if _NAICS.match(text):
         return [f"naics:{text[:n]}" for n in range(2, min(len(text), 4) + 1)]
-    return sorted({t for t in _TOKEN.findall(text) if t not in _CONTEXT_STOP and len(t) > 1})
+    tokens = sorted({t for t in _TOKEN.findall(text) if t not in _CONTEXT_STOP and len(t) > 1})
+    # the whole description as one more token: "fast food restaurant" says more than its words
+    # (NAICS prefixes are a hierarchy already: the longest is the most specific)
+    if len(tokens) > 1 and not tokens[0].startswith("naics:"):
+        return tokens + ["=" + "_".join(tokens)]
+    return tokens
 
 
 def _checksum(path: Path) -> str:

@@ -17,11 +17,13 @@ from .dictionary import context_tokens
 
 FEATURES = [
     "exact", "exact_corrected", "via_role", "sim_char", "sim_word", "ratio", "token_set_ratio", "partial_ratio",
-    "jaro_winkler", "share", "support", "log_key_weight", "log_code_weight", "code_prior", "ctx_share",
+    "jaro_winkler", "share", "share_evidence", "log_exact_weight", "support", "log_key_weight", "log_code_weight", "code_prior", "ctx_share",
     "ctx_global", "has_context", "ctx_known", "clf_prob", "clf_rank", "official", "n_changes",
     "spelling_changed", "n_roles", "n_tokens", "n_codes", "score", "score_gap", "rank",
 ]
 MAX_CANDIDATES = 10
+NEAR_DISCOUNT = 0.95   # similarity factor for a dictionary title that is not the title itself
+EXACT_EVIDENCE = 5.0   # records of the exact title at which its neighbours' codes count half
 
 
 def _pairwise_cosine(a: sp.csr_matrix, b: sp.csr_matrix) -> np.ndarray:
@@ -29,7 +31,8 @@ def _pairwise_cosine(a: sp.csr_matrix, b: sp.csr_matrix) -> np.ndarray:
 
 
 class ContextTables:
-    """Context evidence from a dictionary: per (key, token, code) and per (token, code) weights."""
+    """Context evidence from a dictionary: per (key, token, code) and per (token, code) weights,
+    and how telling each token is (the largest share any one code has under it)."""
 
     def __init__(self, contexts: pd.DataFrame, index: TitleIndex):
         key_pos = pd.Index(index.keys_).get_indexer(contexts["key"])
@@ -38,19 +41,39 @@ class ContextTables:
                               "weight": contexts["weight"].to_numpy()})
         table = table[(table["key"] >= 0) & (table["code"] >= 0)]
         self.key_token_code = table.set_index(["key", "token", "code"])["weight"]
-        self.key_token = table.groupby(["key", "token"])["weight"].sum()
+        by_key_token = table.groupby(["key", "token"])["weight"]
+        self.key_token = by_key_token.sum()
+        self.key_token_purity = by_key_token.max() / self.key_token
         self.token_code = table.groupby(["token", "code"])["weight"].sum()
-        self.token = table.groupby("token")["weight"].sum()
+        by_token = self.token_code.groupby(level="token")
+        self.token = by_token.sum()
+        self.token_purity = by_token.max() / self.token
 
 
-CONTEXT_PRIOR = 2.0  # pseudo-records pulling a context token's code share toward the title's overall share
+CONTEXT_PRIOR = 2.0     # pseudo-records pulling a context token's code share toward the title's overall share
+CONTEXT_MIN_WEIGHT = 3.0  # a token must have been seen with the title this often to be the telling one
+
+
+def _telling_token(frame: pd.DataFrame, weight: np.ndarray, purity: np.ndarray, by: list[str]) -> np.ndarray:
+    """Mark, per group, the token with the purest code distribution among those seen often enough
+    (the whole context when it qualifies, since it is the most specific)."""
+    enough = np.nan_to_num(weight) >= CONTEXT_MIN_WEIGHT
+    rank = np.where(enough, np.nan_to_num(purity) + 0.5 * frame["token"].str.startswith("=").to_numpy(), -1.0)
+    order = pd.DataFrame({**{b: frame[b].to_numpy() for b in by}, "rank": rank, "w": np.nan_to_num(weight),
+                          "token": frame["token"].to_numpy(), "pos": np.arange(len(frame))})
+    order = order.sort_values(by + ["rank", "w", "token"], ascending=[True] * len(by) + [False, False, True])
+    best = order.drop_duplicates(by)
+    best = best[best["rank"] >= 0][by + ["token"]]
+    keys = by + ["token"]
+    chosen = pd.MultiIndex.from_frame(order.sort_values("pos")[keys]).isin(pd.MultiIndex.from_frame(best))
+    return np.asarray(chosen)  # every code of the record is read under the same token
 
 
 def _context_features(cands: pd.DataFrame, unit_tokens: pd.Series, ctx: ContextTables) -> pd.DataFrame:
-    """The code's share among records with the unit's most telling context token: within the best
-    key (``ctx_share``) and over all keys (``ctx_global``). Shares are shrunk toward the code's
-    overall share so that a token seen once does not decide, and the most telling token counts,
-    since words shared by every context (``school``) say nothing."""
+    """The code's share among records sharing the unit's most telling context token: within the
+    best key (``ctx_share``) and over all keys (``ctx_global``). One token decides for every code
+    of a record, the purest one seen often enough, since words shared by every context
+    (``school``) say nothing; shares are shrunk toward the code's overall share."""
     exploded = cands[["row", "unit", "key", "code", "share", "code_prior_share"]].merge(
         unit_tokens.rename("token").explode().dropna().reset_index().rename(columns={"index": "unit"}), on="unit")
     if not len(exploded):
@@ -59,14 +82,15 @@ def _context_features(cands: pd.DataFrame, unit_tokens: pd.Series, ctx: ContextT
     ktc = pd.MultiIndex.from_arrays([exploded["key"], exploded["token"], exploded["code"]])
     tc = pd.MultiIndex.from_arrays([exploded["token"], exploded["code"]])
     key_total = ctx.key_token.reindex(kt).to_numpy()
-    known = ~np.isnan(key_total)
     in_key = ctx.key_token_code.reindex(ktc).fillna(0).to_numpy()
-    exploded["ctx_share"] = np.where(known, (in_key + CONTEXT_PRIOR * exploded["share"])
+    local = _telling_token(exploded, key_total, ctx.key_token_purity.reindex(kt).to_numpy(), ["unit", "key"])
+    exploded["ctx_share"] = np.where(local, (in_key + CONTEXT_PRIOR * exploded["share"])
                                      / (np.nan_to_num(key_total) + CONTEXT_PRIOR), np.nan)
-    token_total = ctx.token.reindex(exploded["token"]).fillna(0).to_numpy()
+    token_total = ctx.token.reindex(exploded["token"]).to_numpy()
     in_all = ctx.token_code.reindex(tc).fillna(0).to_numpy()
-    exploded["ctx_global"] = np.where(token_total > 0, (in_all + CONTEXT_PRIOR * exploded["code_prior_share"])
-                                      / (token_total + CONTEXT_PRIOR), np.nan)
+    wide = _telling_token(exploded, token_total, ctx.token_purity.reindex(exploded["token"]).to_numpy(), ["unit"])
+    exploded["ctx_global"] = np.where(wide, (in_all + CONTEXT_PRIOR * exploded["code_prior_share"])
+                                      / (np.nan_to_num(token_total) + CONTEXT_PRIOR), np.nan)
     return exploded.groupby("row")[["ctx_share", "ctx_global"]].max()
 
 
@@ -106,7 +130,10 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     flags["sim_word"] = _pairwise_cosine(qw[q_idx], kw[k_idx])
     flags.loc[(flags["exact"] + flags["exact_corrected"]) > 0, ["sim_char", "sim_word"]] = 1.0
     flags["strength"] = np.maximum(flags["sim_char"], flags["sim_word"])
-    flags.loc[flags["via_role"] > 0, "strength"] = np.maximum(flags["strength"], 0.9)
+    is_exact = (flags["exact"] + flags["exact_corrected"]) > 0
+    flags.loc[~is_exact, "strength"] *= NEAR_DISCOUNT  # a different title never ties with the same one
+    # the first-listed role of a multi-role title is what gets coded (common practice)
+    flags.loc[flags["via_role"] > 0, "strength"] = 1.0
 
     # expand each key to its codes
     kc_rows = index.key_codes_[k_idx].tocoo()
@@ -116,13 +143,20 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     expanded["code_weight"] = kc_rows.data
     expanded["key_weight"] = key_total[expanded["key"].to_numpy()]
     expanded["share"] = expanded["code_weight"] / expanded["key_weight"]
+    # a title seen once says little: its share counts as if one more record had another code
+    expanded["share_evidence"] = expanded["code_weight"] / (expanded["key_weight"] + 1.0)
+    exact_weight = (expanded[expanded["exact"] + expanded["exact_corrected"] > 0]
+                    .drop_duplicates(["query", "key"]).groupby("query")["key_weight"].max())
     expanded["vote"] = expanded["strength"] ** 2 * expanded["code_weight"]
     expanded["key_vote"] = expanded["strength"] ** 2 * expanded["key_weight"]
     votes = expanded.groupby(["query", "code"])["vote"].sum()
     vote_total = expanded.drop_duplicates(["query", "key"]).groupby("query")["key_vote"].sum()
-    expanded["match"] = expanded["strength"] * expanded["share"]
-    best = (expanded.sort_values(["query", "code", "strength", "share", "key"],
-                                 ascending=[True, True, False, False, True])
+    # the dictionary title standing behind each code: the best match weighed by its evidence
+    # (the title itself, corrected, or its first role before any neighbour)
+    expanded["evidence"] = expanded["strength"] ** 2 * expanded["share_evidence"]
+    expanded["own"] = (expanded["exact"] + expanded["exact_corrected"] + expanded["via_role"]) > 0
+    best = (expanded.sort_values(["query", "code", "own", "evidence", "strength", "key"],
+                                 ascending=[True, True, False, False, False, True])
             .drop_duplicates(["query", "code"]))
     best["support"] = (votes.reindex(pd.MultiIndex.from_arrays([best["query"], best["code"]])).to_numpy()
                        / vote_total.reindex(best["query"]).to_numpy())
@@ -131,7 +165,7 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     clf["clf_rank"] = clf.groupby("query")["prob"].rank(ascending=False, method="first")
     cands = best.merge(clf.rename(columns={"prob": "clf_prob"}), on=["query", "code"], how="outer")
     fill = {"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0, "sim_char": 0.0, "sim_word": 0.0,
-            "strength": 0.0, "share": 0.0, "support": 0.0, "code_weight": 0.0, "key_weight": 0.0,
+            "strength": 0.0, "share": 0.0, "share_evidence": 0.0, "support": 0.0, "code_weight": 0.0, "key_weight": 0.0,
             "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
     cands = cands.fillna(fill)
     # the classifier's probability for codes found by other sources too
@@ -155,9 +189,15 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     has_context = tokens.map(len).to_numpy() > 0
     cands["has_context"] = has_context[cands["unit"].to_numpy()].astype(float)
     cands["ctx_known"] = cands["ctx_share"].notna().astype(float)
-    share_eff = np.where(cands["ctx_known"] > 0, cands["ctx_share"].fillna(0), cands["share"])
+    share_eff = np.where(cands["ctx_known"] > 0, cands["ctx_share"].fillna(0),
+                         _with_global_context(cands))
+    # a well-attested exact title leaves little room for its neighbours' codes
+    own = exact_weight.reindex(cands["query"]).fillna(0).to_numpy()
+    cands["log_exact_weight"] = np.log1p(own)
+    from_exact = (cands["exact"] + cands["exact_corrected"] + cands["via_role"]).to_numpy() > 0
+    room = np.where(from_exact, 1.0, EXACT_EVIDENCE / (EXACT_EVIDENCE + own))
     # similarity squared: a near neighbour must be very near to outrank an exact title's share
-    cands["score"] = np.maximum(cands["strength"] ** 2 * share_eff, 0.5 * cands["clf_prob"])
+    cands["score"] = np.maximum(cands["strength"] ** 2 * share_eff * room, 0.5 * cands["clf_prob"])
     cands[["ctx_share", "ctx_global"]] = cands[["ctx_share", "ctx_global"]].fillna(-1.0)
 
     cands = cands.sort_values(["unit", "score", "support", "code"], ascending=[True, False, False, True])
@@ -189,6 +229,21 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands["code"] = code_strings
     cands["key"] = key_text
     return cands[["unit", "code", "key"] + FEATURES]
+
+
+def _with_global_context(cands: pd.DataFrame) -> np.ndarray:
+    """When the title was never seen in this context, weigh its codes by what the context says
+    across all titles (naive Bayes: share x P(code | context) / P(code)), renormalized so the
+    title's own codes keep their total share."""
+    ratio = cands["ctx_global"].to_numpy() / cands["code_prior_share"].to_numpy()
+    usable = ~np.isnan(ratio)
+    weighted = cands["share_evidence"].to_numpy() * np.where(usable, ratio, 1.0)
+    own = ((cands["exact"] + cands["exact_corrected"] + cands["via_role"]) > 0).to_numpy()
+    units = cands["unit"].to_numpy()
+    before = pd.Series(np.where(own, cands["share_evidence"], 0.0)).groupby(units).transform("sum").to_numpy()
+    after = pd.Series(np.where(own, weighted, 0.0)).groupby(units).transform("sum").to_numpy()
+    scaled = np.divide(weighted * before, after, out=cands["share_evidence"].to_numpy().copy(), where=after > 0)
+    return np.where(own & usable, scaled, cands["share_evidence"].to_numpy())
 
 
 def _classifier_prob(index: TitleIndex, qtext: np.ndarray, query: np.ndarray, code: np.ndarray) -> np.ndarray:
