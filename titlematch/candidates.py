@@ -73,6 +73,12 @@ def _corrector(dictionary: TitleDictionary) -> SpellingCorrector:
     return SpellingCorrector().fit(vocabulary.drop(suspects))
 
 
+def _context_words(context: str) -> str:
+    """Context tokens as classifier words of their own (``ctx_school``), apart from title words."""
+    from .dictionary import context_tokens
+    return " ".join("ctx_" + t for t in context_tokens(context) if not t.startswith("="))
+
+
 def top_k_sparse(scores: sp.csr_matrix, k: int, min_score: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Rows, columns and values of the ``k`` largest entries of each row of a CSR matrix."""
     scores = scores.tocsr()
@@ -121,7 +127,7 @@ class TitleIndex:
         self.char_vectorizer_ = _char_vectorizer(min_df=1).fit(self.keys_)
         self.word_vectorizer_ = _word_vectorizer().fit(self.keys_)
         self._fit_key_matrices()
-        self._fit_classifier(entries)
+        self._fit_classifier(dictionary)
         self.corrector_ = _corrector(dictionary)
         return self
 
@@ -136,9 +142,12 @@ class TitleIndex:
         self.char_matrix_ = self.char_vectorizer_.transform(self.keys_).T.tocsr()
         self.word_matrix_ = self.word_vectorizer_.transform(self.keys_).T.tocsr()
 
-    def _classifier_matrix(self, keys) -> sp.csr_matrix:
+    def _classifier_matrix(self, keys, contexts=None) -> sp.csr_matrix:
+        """Title words and character 4-grams, plus the context's words marked as context."""
         words, chars = self._hashers
-        raw = words.transform(keys) + chars.transform(keys)
+        keys = list(keys)
+        texts = keys if contexts is None else [f"{k} {_context_words(c)}" for k, c in zip(keys, contexts)]
+        raw = words.transform(texts) + chars.transform(keys)
         return l2_normalize(raw.multiply(self.classifier_idf_).tocsr())
 
     @property
@@ -147,17 +156,23 @@ class TitleIndex:
             self._hashers_cache = _classifier_vectorizers()
         return self._hashers_cache
 
-    def _fit_classifier(self, entries: pd.DataFrame) -> None:
+    def _fit_classifier(self, dictionary: TitleDictionary) -> None:
         # The published method (TF-IDF word 1-2-grams + character 4-grams into a linear model), as a
-        # nearest-centroid (Rocchio) model: one sparse product over the distinct (title, code) pairs
-        # weighted by their records, so a million-record build takes seconds and the weights stay sparse.
+        # nearest-centroid (Rocchio) model: one sparse product over the distinct (title, context, code)
+        # units weighted by their records, so a million-record build takes seconds and the weights
+        # stay sparse. The context's words are features too: "driver" at a bus company is not
+        # "driver" at a trucking firm, even for a title never seen.
+        units = dictionary.units.groupby(["key", "context", "code"], sort=True)["count"].sum().reset_index()
+        official = dictionary.official.assign(context="", count=1)
+        train = pd.concat([units, official[["key", "context", "code", "count"]]], ignore_index=True)
+        train = train[train["code"].isin(set(self.codes_))]
         words, chars = self._hashers
-        raw = words.transform(entries["key"]) + chars.transform(entries["key"])
-        tfidf = TfidfTransformer(sublinear_tf=True).fit(raw)
-        self.classifier_idf_ = tfidf.idf_.astype(np.float32)
-        X = self._classifier_matrix(entries["key"])
-        y = pd.Index(self.codes_).get_indexer(entries["code"])
-        weight = np.log1p(entries["weight"].to_numpy()).astype(np.float32)  # damp the largest titles
+        texts = [f"{k} {_context_words(c)}" for k, c in zip(train["key"], train["context"])]
+        raw = words.transform(texts) + chars.transform(train["key"])
+        self.classifier_idf_ = TfidfTransformer(sublinear_tf=True).fit(raw).idf_.astype(np.float32)
+        X = self._classifier_matrix(train["key"], train["context"])
+        y = pd.Index(self.codes_).get_indexer(train["code"])
+        weight = np.log1p(train["count"].to_numpy()).astype(np.float32)  # damp the largest titles
         membership = sp.csr_matrix((weight, (y, np.arange(len(y)))), shape=(len(self.codes_), len(y)))
         centroids = l2_normalize((membership @ X).tocsr())
         centroids.data[np.abs(centroids.data) < 1e-4] = 0.0  # negligible weights only bloat the file
@@ -217,19 +232,25 @@ class TitleIndex:
             out.append(pd.DataFrame({"query": rows + start, "key": cols, "sim": vals.astype(np.float64)}))
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
 
-    def classify(self, queries) -> pd.DataFrame:
+    def classify(self, queries, contexts=None) -> pd.DataFrame:
         """The text classifier's top codes per query: query, code (position), prob (softmax over codes)."""
         out = []
         coef_t = self.classifier_coef_.T.tocsr()
         for start in range(0, len(queries), CHUNK):
-            X = self._classifier_matrix(queries[start:start + CHUNK])
-            prob = self._softmax(np.asarray((X @ coef_t).todense()) + self.classifier_intercept_)
+            part = None if contexts is None else contexts[start:start + CHUNK]
+            prob = self.classifier_proba(queries[start:start + CHUNK], part, coef_t)
             k = min(self.classifier_top, prob.shape[1])
             top = np.argpartition(-prob, k - 1, axis=1)[:, :k]
             rows = np.repeat(np.arange(len(top)), k)
             out.append(pd.DataFrame({"query": rows + start, "code": self.classifier_classes_[top.ravel()],
                                      "prob": prob[rows, top.ravel()]}))
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "code": [], "prob": []})
+
+    def classifier_proba(self, queries, contexts=None, coef_t=None) -> np.ndarray:
+        """Softmax over all codes (columns in ``classifier_classes_`` order) for each query."""
+        coef_t = self.classifier_coef_.T.tocsr() if coef_t is None else coef_t
+        X = self._classifier_matrix(queries, contexts)
+        return self._softmax(np.asarray((X @ coef_t).todense()) + self.classifier_intercept_)
 
     @staticmethod
     def _softmax(cosine: np.ndarray) -> np.ndarray:

@@ -161,23 +161,31 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     best["support"] = (votes.reindex(pd.MultiIndex.from_arrays([best["query"], best["code"]])).to_numpy()
                        / vote_total.reindex(best["query"]).to_numpy())
 
-    clf = index.classify(qtext)
+    # to units: every unit of a query shares its candidates; context differs per unit
+    unit_frame = pd.DataFrame({"unit": np.arange(len(units)), "query": q_of_unit})
+    cands = unit_frame.merge(best, on="query")
+    # the classifier reads title and context, so it works per distinct (query, context)
+    reads = pd.DataFrame({"query": q_of_unit, "context": units["context"].fillna("").to_numpy()})
+    distinct = reads.drop_duplicates().reset_index(drop=True)
+    read_of_unit = pd.MultiIndex.from_frame(distinct).get_indexer(pd.MultiIndex.from_frame(reads))
+    clf = index.classify(qtext[distinct["query"].to_numpy()], distinct["context"].to_numpy())
     clf["clf_rank"] = clf.groupby("query")["prob"].rank(ascending=False, method="first")
-    cands = best.merge(clf.rename(columns={"prob": "clf_prob"}), on=["query", "code"], how="outer")
+    clf = clf.rename(columns={"query": "read", "prob": "clf_prob"})
+    by_read = pd.DataFrame({"unit": np.arange(len(units)), "read": read_of_unit, "query": q_of_unit})
+    clf = by_read.merge(clf, on="read").drop(columns="read")
+    cands = cands.merge(clf, on=["unit", "query", "code"], how="outer")
     fill = {"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0, "sim_char": 0.0, "sim_word": 0.0,
-            "strength": 0.0, "share": 0.0, "share_evidence": 0.0, "support": 0.0, "code_weight": 0.0, "key_weight": 0.0,
-            "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
+            "strength": 0.0, "share": 0.0, "share_evidence": 0.0, "support": 0.0, "code_weight": 0.0,
+            "key_weight": 0.0, "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
     cands = cands.fillna(fill)
     # the classifier's probability for codes found by other sources too
     missing = cands["clf_rank"] >= 99
     if missing.any():
-        cands.loc[missing, "clf_prob"] = _classifier_prob(index, qtext, cands.loc[missing, "query"].to_numpy(),
-                                                          cands.loc[missing, "code"].to_numpy())
+        rows = cands.loc[missing]
+        cands.loc[missing, "clf_prob"] = _classifier_prob(index, qtext, distinct, read_of_unit[rows["unit"].to_numpy()],
+                                                          rows["code"].to_numpy())
     cands["key"] = cands["key"].astype(np.int64)
-
-    # to units: every unit of a query shares its candidates; context differs per unit
-    unit_frame = pd.DataFrame({"unit": np.arange(len(units)), "query": q_of_unit})
-    cands = unit_frame.merge(cands, on="query").reset_index(drop=True)
+    cands = cands.sort_values(["unit", "code"]).reset_index(drop=True)
     cands["row"] = np.arange(len(cands))
     tokens = units["context"].fillna("").map(context_tokens)
     tokens.index = np.arange(len(units))
@@ -246,13 +254,21 @@ def _with_global_context(cands: pd.DataFrame) -> np.ndarray:
     return np.where(own & usable, scaled, cands["share_evidence"].to_numpy())
 
 
-def _classifier_prob(index: TitleIndex, qtext: np.ndarray, query: np.ndarray, code: np.ndarray) -> np.ndarray:
-    """The classifier's softmax probability of given (query, code) pairs."""
-    uniq, inverse = np.unique(query, return_inverse=True)
-    coef_t = index.classifier_coef_.T.tocsr()
-    X = index._classifier_matrix(qtext[uniq])
-    prob = index._softmax(np.asarray((X @ coef_t).todense()) + index.classifier_intercept_)
+def _classifier_prob(index: TitleIndex, qtext: np.ndarray, distinct: pd.DataFrame, read: np.ndarray,
+                     code: np.ndarray) -> np.ndarray:
+    """The classifier's probability of given (read, code) pairs, chunk by chunk."""
     class_pos = np.full(len(index.codes_), -1)
     class_pos[index.classifier_classes_] = np.arange(len(index.classifier_classes_))
     cols = class_pos[code]
-    return np.where(cols >= 0, prob[inverse, np.maximum(cols, 0)], 0.0)
+    out = np.zeros(len(read))
+    uniq = np.unique(read)
+    coef_t = index.classifier_coef_.T.tocsr()
+    for start in range(0, len(uniq), 2048):
+        part = uniq[start:start + 2048]
+        prob = index.classifier_proba(qtext[distinct["query"].to_numpy()[part]], distinct["context"].to_numpy()[part],
+                                      coef_t)
+        pos = np.searchsorted(part, read)
+        inside = (pos < len(part)) & (part[np.minimum(pos, len(part) - 1)] == read)
+        take = inside & (cols >= 0)
+        out[take] = prob[pos[take], cols[take]]
+    return out
