@@ -27,7 +27,9 @@ def test_exported_trees_reproduce_sklearn_decision_function():
     # Reference library: scikit-learn's HistGradientBoostingClassifier.decision_function.
     X, y = _synthetic()
     X.iloc[::17, 3] = np.nan  # missing values follow the learned side
-    model = HistGradientBoostingClassifier(max_iter=30, random_state=0).fit(X.to_numpy(), y)
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(1):  # OpenMP threads only slow a small fit on a busy machine
+        model = HistGradientBoostingClassifier(max_iter=30, random_state=0).fit(X.to_numpy(), y)
     ours = _evaluate_trees(_export_trees(model), X.to_numpy())
     np.testing.assert_allclose(ours, model.decision_function(X.to_numpy()), rtol=1e-9, atol=1e-9)
 
@@ -89,11 +91,11 @@ def test_round_trip_and_tampered_model_refused(tmp_path):
     again = ConfidenceModel.load(tmp_path / "m")
     np.testing.assert_array_equal(model.predict_proba(X), again.predict_proba(X))
     assert again.threshold_ == 0.9
-    target = tmp_path / "m" / "calibration_x.npy"
+    target = tmp_path / "m" / "calibration_top_x.npy"
     data = bytearray(target.read_bytes())
     data[-1] ^= 0x01
     target.write_bytes(bytes(data))
-    with pytest.raises(ArtefactError, match="calibration_x.npy: checksum mismatch"):
+    with pytest.raises(ArtefactError, match="calibration_top_x.npy: checksum mismatch"):
         ConfidenceModel.load(tmp_path / "m")
 
 

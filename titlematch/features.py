@@ -242,16 +242,20 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
 def _with_global_context(cands: pd.DataFrame) -> np.ndarray:
     """When the title was never seen in this context, weigh its codes by what the context says
     across all titles (naive Bayes: share x P(code | context) / P(code)), renormalized so the
-    title's own codes keep their total share."""
+    codes compared keep their total share: the title's own codes, or, for a title never seen,
+    the codes of all its neighbours."""
     ratio = cands["ctx_global"].to_numpy() / cands["code_prior_share"].to_numpy()
     usable = ~np.isnan(ratio)
     weighted = cands["share_evidence"].to_numpy() * np.where(usable, ratio, 1.0)
     own = ((cands["exact"] + cands["exact_corrected"] + cands["via_role"]) > 0).to_numpy()
     units = cands["unit"].to_numpy()
-    before = pd.Series(np.where(own, cands["share_evidence"], 0.0)).groupby(units).transform("sum").to_numpy()
-    after = pd.Series(np.where(own, weighted, 0.0)).groupby(units).transform("sum").to_numpy()
+    # the codes compared: the title's own, or all its neighbours' when it was never seen
+    has_own = pd.Series(own).groupby(units).transform("any").to_numpy()
+    group = own | ~has_own
+    before = pd.Series(np.where(group, cands["share_evidence"], 0.0)).groupby(units).transform("sum").to_numpy()
+    after = pd.Series(np.where(group, weighted, 0.0)).groupby(units).transform("sum").to_numpy()
     scaled = np.divide(weighted * before, after, out=cands["share_evidence"].to_numpy().copy(), where=after > 0)
-    return np.where(own & usable, scaled, cands["share_evidence"].to_numpy())
+    return np.where(group & usable, np.minimum(scaled, 1.0), cands["share_evidence"].to_numpy())
 
 
 def _classifier_prob(index: TitleIndex, qtext: np.ndarray, distinct: pd.DataFrame, read: np.ndarray,

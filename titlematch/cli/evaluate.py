@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..metrics import SOC_LEVELS
+from ..codes import SOC_LEVELS
 
 ORDER = 66
 
