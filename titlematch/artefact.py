@@ -7,7 +7,6 @@ crafted artefact can make loading fail but cannot run code.
 """
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import shutil
@@ -19,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .io import file_sha256
 
 FORMAT_VERSION = 1
 MANIFEST = "manifest.json"
@@ -37,14 +37,6 @@ class Artefact:
     manifest: dict = field(default_factory=dict)
 
 
-def _sha256(path: Path) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
-
 def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.DataFrame], *,
                   arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> dict:
     """Write an artefact to ``directory`` atomically (built beside it, then renamed into place)."""
@@ -56,14 +48,14 @@ def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.
         for name, table in tables.items():
             target = staging / f"{name}.parquet"
             table.reset_index(drop=True).to_parquet(target, index=False)
-            files[target.name] = {"sha256": _sha256(target), "rows": int(len(table))}
+            files[target.name] = {"sha256": file_sha256(target), "rows": int(len(table))}
         for name, array in (arrays or {}).items():
             array = np.asarray(array)
             if array.dtype == object:
                 raise TypeError(f"array {name!r} has dtype object; artefacts hold numeric arrays only")
             target = staging / f"{name}.npy"
             np.save(target, array, allow_pickle=False)
-            files[target.name] = {"sha256": _sha256(target), "shape": list(array.shape)}
+            files[target.name] = {"sha256": file_sha256(target), "shape": list(array.shape)}
         manifest = {"kind": kind, "format_version": FORMAT_VERSION, "library_version": __version__,
                     "files": files, "meta": meta or {}}
         (staging / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n",
@@ -105,7 +97,7 @@ def load_artefact(directory: str | os.PathLike, kind: str) -> Artefact:
         path = directory / name
         if Path(name).name != name or not path.is_file():
             raise ArtefactError(f"{path}: listed in the manifest but missing")
-        if _sha256(path) != info.get("sha256"):
+        if file_sha256(path) != info.get("sha256"):
             raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
         if name.endswith(".parquet"):
             tables[name[: -len(".parquet")]] = pd.read_parquet(path)

@@ -14,7 +14,6 @@ union, and lets the recency weight (a half-life in years) be recomputed at any t
 """
 from __future__ import annotations
 
-import hashlib
 import os
 import re
 from dataclasses import dataclass
@@ -27,7 +26,7 @@ from unidecode import unidecode
 from . import __version__
 from .artefact import load_artefact, save_artefact
 from .codes import SOC_PATTERN, to_soc_2018
-from .io import ROW_COLUMN, InputError, Rejects, read_table, require_columns
+from .io import ROW_COLUMN, InputError, Rejects, file_sha256, read_table, require_columns
 from .normalize.title import normalize_titles
 
 KIND = "title-dictionary"
@@ -51,14 +50,6 @@ def context_tokens(text: str) -> list[str]:
     if len(tokens) > 1 and not tokens[0].startswith("naics:"):
         return tokens + ["=" + "_".join(tokens)]
     return tokens
-
-
-def _checksum(path: Path) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
 
 
 @dataclass
@@ -381,6 +372,6 @@ def _read_records(path, title_col, code_col, context_col, year_col) -> pd.DataFr
     renames = {title_col: "title", code_col: "code", context_col: "context", year_col: "year"}
     frame = frame.rename(columns={k: v for k, v in renames.items() if k in frame.columns})
     frame.attrs["source_file"] = str(path)
-    frame.attrs["checksum"] = _checksum(Path(path))
+    frame.attrs["checksum"] = file_sha256(path)
     frame.attrs["rejects"] = rejects
     return frame

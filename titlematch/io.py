@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import codecs
 import contextlib
+import hashlib
 import csv
 import io
 import logging
@@ -90,6 +91,15 @@ def rejects_path_for(out: str | os.PathLike) -> Path:
     """``OUT.rejects.csv`` beside an output file."""
     out = Path(out)
     return out.with_name(out.stem + ".rejects.csv")
+
+
+def file_sha256(path: str | os.PathLike) -> str:
+    """SHA-256 of a file's bytes, read in 1 MiB blocks (inputs, artefact files, run checks)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
 
 
 def detect_encoding(data: bytes, encoding: str | None = None) -> str:

@@ -46,7 +46,8 @@ import pyarrow.parquet as pq
 
 from . import __version__
 from .io import (CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, REJECT_COLUMNS, ROW_COLUMN, InputError,
-                 ReadPosition, Rejects, TableChunk, TableReader, atomic_path, rejects_path_for, write_table)
+                 ReadPosition, Rejects, TableChunk, TableReader, atomic_path, file_sha256, rejects_path_for,
+                 write_table)
 from .progress import progress
 
 log = logging.getLogger(__name__)
@@ -96,14 +97,6 @@ def options_digest(options: dict) -> str:
         raise ValueError(f"options must be a dict of JSON values (str, numbers, lists, dicts), got {options!r}: "
                          f"{exc}") from exc
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
-
-
-def file_sha256(path: str | os.PathLike) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
 
 
 def run_chunked(input_path: str | os.PathLike, out_path: str | os.PathLike, process: Process, *,
