@@ -41,8 +41,11 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=7)
     parser.add_argument("--scale-records", type=int, default=0, help="also build from this many past records")
     parser.add_argument("--scale-new", type=int, default=100_000)
+    parser.add_argument("--scale-only", action="store_true", help="only the scale run (no peer, no accuracy)")
     args = parser.parse_args(argv)
 
+    if args.scale_only:
+        return scale_run(args, classification())
     data = make_title_scenario(seed=args.seed, records_per_year=args.records_per_year, new_records=args.new)
     past, new, truth = data["past"], data["new"], data["new_truth"]
     soc = classification()
@@ -83,6 +86,12 @@ def main(argv=None) -> int:
             ("build + code vs train + predict", f"{ours_total:.2f}", f"{peer_total:.2f}", f"{peer_total / ours_total:.1f}x faster")]
     print(table(rows, ("measure", "titlematch", "peer: TF-IDF + LR", "difference")))
 
+    if args.scale_records:
+        scale_run(args, soc)
+    return 0
+
+
+def scale_run(args, soc) -> int:
     if args.scale_records:
         big = make_title_scenario(seed=args.seed + 1, records_per_year=args.scale_records // 3,
                                   new_records=args.scale_new, gold_records=100)
