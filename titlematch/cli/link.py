@@ -1,0 +1,116 @@
+"""``titlematch link``: link new establishment records to a business register (or find duplicates)."""
+from __future__ import annotations
+
+import argparse
+import logging
+from dataclasses import replace
+from pathlib import Path
+
+from ..io import InputError, Rejects, read_table, rejects_path_for, write_table
+from ..linking import EstablishmentLinker
+from ..progress import Summary
+from ..register import RegisterIndex, resolve_fields
+
+ORDER = 40
+log = logging.getLogger(__name__)
+
+
+def parse_fields(text: str | None, option: str = "--fields") -> dict[str, str]:
+    """``"name=employer_name,address=street"`` -> ``{"name": "employer_name", "address": "street"}``."""
+    if not text:
+        return {}
+    mapping = {}
+    for item in text.split(","):
+        role, sep, column = item.partition("=")
+        if not sep or not role.strip() or not column.strip():
+            raise InputError(f"{option}: expected ROLE=COLUMN pairs separated by commas, got {item!r}")
+        mapping[role.strip()] = column.strip()
+    return mapping
+
+
+def add_common_field_options(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--id-col", default="register_id", help="register id column (default register_id)")
+    parser.add_argument("--encoding", help="CSV encoding (default: detected)")
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "link", help="link establishment records to a business register",
+        description="Link each record of FILE to at most one register entry (blocking, comparisons, "
+                    "Fellegi-Sunter or a supervised model) and write every input column plus register_id, "
+                    "confidence, decision (accept/refer/no-match), register_name, register_address, "
+                    "register_id_2, confidence_2 and explanation. With --dedupe, group duplicates within FILE.")
+    parser.add_argument("file", help="records to link (CSV, Parquet or .xlsx)")
+    parser.add_argument("--register", help="register table, or an index directory built by 'titlematch register'")
+    parser.add_argument("--out", required=True, help="output table (CSV, Parquet or .xlsx)")
+    parser.add_argument("--fields", metavar="ROLE=COLUMN,...",
+                        help="record columns of the compared fields (roles name, address, city, postcode, naics), "
+                             "e.g. name=employer_name,address=street")
+    parser.add_argument("--record-id", help="record id column (default record_id when present)")
+    parser.add_argument("--training", help="labelled records: record id (or the fields) and register id; "
+                                           "gives a supervised model")
+    parser.add_argument("--dedupe", action="store_true", help="find duplicates within FILE instead of linking")
+    parser.add_argument("--threshold", type=float, default=0.9, help="accept at this confidence (default 0.9)")
+    parser.add_argument("--refer-threshold", type=float, default=0.5,
+                        help="refer to a person at this confidence (default 0.5); below: no-match")
+    parser.add_argument("--one-to-one", action="store_true",
+                        help="a register entry takes at most one record of the file")
+    parser.add_argument("--neighbours", type=int, default=10, help="nearest names per record in blocking")
+    parser.add_argument("--max-block", type=int, default=100, help="skip key blocks larger than this")
+    parser.add_argument("--workers", type=int, default=-1, help="threads for string comparisons (-1 = all)")
+    parser.add_argument("--register-fields", metavar="ROLE=COLUMN,...",
+                        help="register column names when they differ from the records' (same syntax as --fields)")
+    add_common_field_options(parser)
+    return parser
+
+
+def _fields(args):
+    new = parse_fields(args.fields)
+    register = parse_fields(getattr(args, "register_fields", None), "--register-fields")
+    fields = resolve_fields(new or None)
+    return [replace(f, register_column=register.get(f.name, f.column)) for f in fields]
+
+
+def load_register(args, fields, rejects: Rejects) -> RegisterIndex:
+    path = Path(args.register)
+    if path.is_dir():
+        index = RegisterIndex.load(path)
+        columns = parse_fields(args.fields)
+        index.fields_ = [replace(f, column=columns.get(f.name, f.column)) for f in index.fields_]
+        return index
+    frame = read_table(path, required=[args.id_col], encoding=args.encoding, rejects=rejects)
+    return RegisterIndex(fields, args.id_col).build(frame, source=str(path))
+
+
+def run(args) -> int:
+    summary = Summary("link", args.quiet)
+    rejects = Rejects()
+    records = read_table(args.file, encoding=args.encoding, rejects=rejects)
+    fields = _fields(args)
+    linker = EstablishmentLinker(fields, id_column=args.id_col, record_id=args.record_id,
+                                 threshold=args.threshold, refer_threshold=args.refer_threshold,
+                                 one_to_one=args.one_to_one, k=args.neighbours, max_block=args.max_block,
+                                 workers=args.workers)
+    if args.dedupe:
+        result = linker.dedupe(records, rejects=rejects, source=args.file)
+        write_table(result, args.out)
+        summary.set(rows_in=len(records), groups=result["cluster_id"].nunique(),
+                    records_with_duplicates=int((result["cluster_size"] > 1).sum()), rejected=len(rejects.rows()))
+    else:
+        if not args.register:
+            raise InputError("link: give --register FILE_OR_INDEX (or --dedupe to search FILE itself)")
+        index = load_register(args, fields, rejects)
+        training = None
+        if args.training:
+            training = read_table(args.training, encoding=args.encoding, rejects=rejects)
+        # Without training, m and u are estimated by EM on this file's own candidate pairs.
+        linker.fit(index, training, records=records if training is not None else None)
+        result = linker.link(records, rejects=rejects, source=args.file)
+        write_table(result, args.out)
+        counts = result["decision"].value_counts()
+        summary.set(rows_in=len(records), accepted=counts.get("accept", 0), referred=counts.get("refer", 0),
+                    no_match=counts.get("no-match", 0), rejected=len(rejects.rows()))
+    if len(rejects):
+        rejects.write(rejects_path_for(args.out))
+    summary.print()
+    return 0

@@ -1,0 +1,37 @@
+"""``titlematch register``: build a register index once, for reuse by ``titlematch link --register DIR``."""
+from __future__ import annotations
+
+import argparse
+
+from ..io import Rejects, read_table, rejects_path_for
+from ..progress import Summary
+from ..register import RegisterIndex
+from .link import _fields, add_common_field_options
+
+ORDER = 39
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "register", help="build a business register index for linking",
+        description="Normalize a register's names, addresses and postcodes, fit the TF-IDF models and save "
+                    "everything as a checksummed index directory that 'titlematch link --register DIR' reads.")
+    parser.add_argument("file", help="register table (CSV, Parquet or .xlsx) with an id column")
+    parser.add_argument("--out", required=True, help="index directory to write")
+    parser.add_argument("--fields", metavar="ROLE=COLUMN,...",
+                        help="register columns of the compared fields, e.g. name=legal_name,address=street")
+    add_common_field_options(parser)
+    return parser
+
+
+def run(args) -> int:
+    summary = Summary("register", args.quiet)
+    rejects = Rejects()
+    frame = read_table(args.file, required=[args.id_col], encoding=args.encoding, rejects=rejects)
+    index = RegisterIndex(_fields(args), args.id_col).build(frame, source=args.file)
+    index.save(args.out)
+    summary.set(rows_in=len(frame) + len(rejects.rows()), indexed=len(index), rejected=len(rejects.rows()))
+    if len(rejects):
+        rejects.write(rejects_path_for(args.out.rstrip("/") + ".csv"))
+    summary.print()
+    return 0

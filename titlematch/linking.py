@@ -1,0 +1,603 @@
+"""Linking new establishments (or any records) to a register, and finding duplicates in a batch.
+
+Pipeline: prepare fields -> blocking -> comparisons -> classification -> decisions.
+
+Classification is Fellegi–Sunter with m/u probabilities estimated by EM (recordlinkage's
+``ECMClassifier``) when no labelled pairs are given, or a logistic regression on the
+comparison features when they are. Either way a pair's evidence is a sum of per-field
+weights in bits, shown in the ``explanation`` column. A record links to at most one
+register entry, so its candidates compete: confidence = odds / (1 + sum of its
+candidates' odds), and two good candidates leave neither confident (a referral).
+
+Example
+-------
+>>> linker = EstablishmentLinker().fit(register_frame)        # doctest: +SKIP
+>>> linked = linker.link(new_records)                          # doctest: +SKIP
+>>> linked[["record_id", "register_id", "confidence", "decision", "explanation"]]  # doctest: +SKIP
+"""
+from __future__ import annotations
+
+import logging
+import os
+from dataclasses import asdict, replace
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+from recordlinkage import ECMClassifier
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+from sklearn.linear_model import LogisticRegression
+
+from .artefact import ArtefactError, load_artefact, save_artefact
+from .blocking import KeyRule, NeighbourRule, TokenRule, candidate_pairs, default_rules
+from .comparison import agreement_levels, compare
+from .io import ROW_COLUMN, InputError, Rejects
+from .register import Field, RegisterIndex, check_fields, resolve_fields
+
+log = logging.getLogger(__name__)
+
+DECISIONS = ("accept", "refer", "no-match")
+MODEL_KIND = "establishment-linker"
+_RULE_TYPES = {"KeyRule": KeyRule, "TokenRule": TokenRule, "NeighbourRule": NeighbourRule}
+OUTPUT_COLUMNS = ["register_id", "confidence", "decision", "register_name", "register_address",
+                  "register_id_2", "confidence_2", "explanation"]
+_CLIP = 1e-4  # m and u are kept inside (CLIP, 1 - CLIP) so no single field has infinite weight
+LN2 = np.log(2.0)
+
+
+# --------------------------------------------------------------------------- models
+
+class FellegiSunterModel:
+    """Fellegi–Sunter weights from EM-estimated m/u probabilities.
+
+    ``fit`` runs recordlinkage's ``ECMClassifier`` on the 0/1 agreement patterns (a missing
+    value counted as disagreement), then re-estimates m and u of each field over the pairs
+    where that field is present, using the EM posteriors: a missing value is then neither
+    agreement nor disagreement (weight 0), as in Fellegi and Sunter (1969).
+
+    ``max_m`` caps m: EM's match class tends to be the flawless pairs, m near 1, and then a single
+    typing error would outweigh everything else; at most 0.99 leaves room for one error in a
+    hundred in any field (a cap of our choosing, in the spirit of common practice).
+
+    Attributes: ``m_``, ``u_`` (Series per field), ``prior_`` (share of matches among candidates).
+    """
+
+    def __init__(self, max_iter: int = 100, refinements: int = 30, sample_size: int = 200_000,
+                 min_pairs: int = 50, max_m: float = 0.99) -> None:
+        self.max_iter = max_iter
+        self.max_m = max_m
+        self.min_pairs = min_pairs
+        self.refinements = refinements
+        self.sample_size = sample_size
+
+    def fit(self, levels: pd.DataFrame, groups: np.ndarray | None = None) -> "FellegiSunterModel":
+        """Estimate m, u and the prior from 0/1/NaN ``levels``; ``groups`` (the record of each pair)
+        makes the refinements treat a record's candidates as rivals: at most one is its match."""
+        ecm = ECMClassifier(init="jaro", binarize=None, max_iter=self.max_iter)
+        levels = levels.loc[:, levels.notna().any()]  # a field never observed carries no weight
+        complete = levels.fillna(0).astype(np.int8)
+        # ECM's "jaro" start needs both values present in every column; a constant column gets a fixed weight.
+        varying = [c for c in levels.columns if complete[c].nunique() == 2]
+        self.m_ = pd.Series(0.9, index=levels.columns, dtype=float)
+        self.u_ = pd.Series(0.1, index=levels.columns, dtype=float)
+        self.prior_ = 0.1
+        if len(levels) < self.min_pairs:
+            # Too few pairs to estimate anything: the textbook start values stand (m 0.9, u 0.1).
+            log.warning("only %d candidate pairs: Fellegi–Sunter weights not estimated (m=0.9, u=0.1)",
+                        len(levels))
+            self._clip()
+            return self
+        if varying:
+            # ECM gives the starting m/u; a sample is enough for it, the refinements below use every pair.
+            sample = complete[varying]
+            if len(sample) > self.sample_size:
+                sample = sample.sample(self.sample_size, random_state=0)
+            ecm.fit(sample)
+            m, u = ecm.m_probs, ecm.u_probs
+            for c in varying:
+                self.m_[c] = m[c].get(1, _CLIP)
+                self.u_[c] = u[c].get(1, _CLIP)
+            self.prior_ = float(np.exp(ecm.log_p))
+        self._clip()
+        observed = levels.notna()
+        for _ in range(self.refinements):
+            if groups is None:
+                posterior = self.predict_proba(levels)
+            else:
+                posterior = exclusive_confidence(np.asarray(groups), self.log_odds(levels))
+            previous = pd.concat([self.m_, self.u_])
+            for c in levels.columns:
+                seen = observed[c].to_numpy()
+                agree = (levels[c].to_numpy() == 1) & seen
+                g = posterior[seen]
+                if g.sum() > 0 and (1 - g).sum() > 0:
+                    self.m_[c] = posterior[agree].sum() / g.sum()
+                    self.u_[c] = (1 - posterior[agree]).sum() / (1 - g).sum()
+            self.prior_ = float(np.clip(posterior.mean(), _CLIP, 1 - _CLIP))
+            self._clip()
+            if np.allclose(previous, pd.concat([self.m_, self.u_]), atol=1e-4):
+                break
+        return self
+
+    def _clip(self) -> None:
+        self.m_ = self.m_.clip(_CLIP, self.max_m)
+        self.u_ = self.u_.clip(_CLIP, 1 - _CLIP)
+
+    def weights(self, levels: pd.DataFrame) -> pd.DataFrame:
+        """Per-field weight in bits: log2(m/u) if agreeing, log2((1-m)/(1-u)) if not, 0 if missing."""
+        agree = np.log2(self.m_ / self.u_)
+        disagree = np.log2((1 - self.m_) / (1 - self.u_))
+        values = levels[self.m_.index].to_numpy(dtype=float)
+        out = np.where(values == 1, agree.to_numpy(), disagree.to_numpy())
+        out[np.isnan(values)] = 0.0
+        return pd.DataFrame(out, columns=self.m_.index, index=levels.index)
+
+    def log_odds(self, levels: pd.DataFrame) -> np.ndarray:
+        """Natural-log posterior odds of a match for each pair."""
+        prior = np.log(self.prior_ / (1 - self.prior_))
+        return prior + self.weights(levels).to_numpy().sum(axis=1) * LN2
+
+    def predict_proba(self, levels: pd.DataFrame) -> np.ndarray:
+        return 1.0 / (1.0 + np.exp(-np.clip(self.log_odds(levels), -700, 700)))
+
+
+class SupervisedModel:
+    """Logistic regression on the comparison features; a missing value counts 0 plus a
+    missing-value indicator for each feature that was ever missing in training.
+
+    Contributions (``weights``) are coefficient x (value - mean training value) in bits, the
+    indicator folded into its feature. Attributes: ``columns_``, ``indicators_``, ``coef_``,
+    ``intercept_``, ``baseline_`` (plain arrays, saved without pickle).
+    """
+
+    def __init__(self, C: float = 1.0) -> None:
+        self.C = C
+
+    def _design(self, features: pd.DataFrame) -> np.ndarray:
+        values = features.reindex(columns=self.columns_).to_numpy(dtype=float)
+        missing = features.reindex(columns=self.indicators_).isna().to_numpy(dtype=float)
+        return np.hstack([np.nan_to_num(values, nan=0.0), missing])
+
+    def fit(self, features: pd.DataFrame, y: np.ndarray) -> "SupervisedModel":
+        if len(np.unique(y)) < 2:
+            raise InputError("training pairs must include both matches and non-matches among the candidates")
+        self.columns_ = [c for c in features.columns if features[c].notna().any()]
+        self.indicators_ = [c for c in self.columns_ if features[c].isna().any()]
+        design = self._design(features)
+        model = LogisticRegression(C=self.C, max_iter=2000).fit(design, y)
+        self.coef_ = model.coef_[0].astype(float)
+        self.intercept_ = float(model.intercept_[0])
+        # Contributions are measured from the average training pair, so a constant feature shows 0.
+        self.baseline_ = design.mean(axis=0)
+        return self
+
+    def weights(self, features: pd.DataFrame) -> pd.DataFrame:
+        contributions = (self._design(features) - self.baseline_) * self.coef_ / LN2
+        n = len(self.columns_)
+        out = pd.DataFrame(contributions[:, :n], columns=self.columns_, index=features.index)
+        for k, column in enumerate(self.indicators_):
+            out[column] += contributions[:, n + k]
+        return out
+
+    def log_odds(self, features: pd.DataFrame) -> np.ndarray:
+        return self._design(features) @ self.coef_ + self.intercept_
+
+    def predict_proba(self, features: pd.DataFrame) -> np.ndarray:
+        return 1.0 / (1.0 + np.exp(-np.clip(self.log_odds(features), -700, 700)))
+
+
+# --------------------------------------------------------------------------- helpers
+
+def explain(weights: pd.DataFrame, limit: int = 8) -> np.ndarray:
+    """Compact text per row: fields by absolute weight, e.g. ``"name +4.1, house_number +3.2, postcode -1.5"``."""
+    values = weights.to_numpy(dtype=float)
+    names = np.asarray(weights.columns, dtype=object)
+    order = np.argsort(-np.abs(values), axis=1, kind="stable")[:, :limit]
+    out = []
+    for row, idx in zip(values, order):
+        out.append(", ".join(f"{names[k]} {row[k]:+.1f}" for k in idx if abs(row[k]) >= 0.05))
+    return np.asarray(out, dtype=object)
+
+
+def exclusive_confidence(new: np.ndarray, log_odds: np.ndarray) -> np.ndarray:
+    """P(this candidate is the record's match) when at most one candidate is: odds / (1 + sum of odds)."""
+    shift = np.maximum(np.zeros(len(log_odds)), log_odds)
+    top = pd.Series(shift).groupby(new).transform("max").to_numpy()
+    odds = np.exp(np.clip(log_odds - top, -700, 0))
+    total = pd.Series(odds).groupby(new).transform("sum").to_numpy() + np.exp(-top)
+    return odds / total
+
+
+def fitting_pairs(pairs: pd.DataFrame, features: pd.DataFrame, per_record: int = 3,
+                  column: str = "new") -> np.ndarray:
+    """Mask of each record's ``per_record`` most similar candidates (mean of its features).
+
+    EM separates matches from non-matches reliably only when matches are not too rare among
+    the pairs it sees (Winkler's experience, from memory: a few per cent at least). Far-off
+    candidates say little about m and make a second cluster (same street, same town) likelier
+    to be taken for the matches, so m and u are estimated on the close candidates only.
+    """
+    crude = features.mean(axis=1, skipna=True).fillna(0.0).to_numpy()
+    owner = pairs[column].to_numpy()
+    order = np.lexsort((-crude, owner))
+    rank = np.arange(len(order)) - np.searchsorted(owner[order], owner[order], side="left")
+    mask = np.zeros(len(pairs), dtype=bool)
+    mask[order[rank < per_record]] = True
+    return mask
+
+
+def _greedy_one_to_one(new: np.ndarray, register: np.ndarray, confidence: np.ndarray, floor: float) -> np.ndarray:
+    """Boolean mask of pairs kept when each register entry takes at most one record (greedy by confidence)."""
+    keep = np.zeros(len(new), dtype=bool)
+    taken_new, taken_register = set(), set()
+    for k in np.argsort(-confidence, kind="stable"):
+        if confidence[k] < floor:
+            break
+        if new[k] in taken_new or register[k] in taken_register:
+            continue
+        keep[k] = True
+        taken_new.add(new[k])
+        taken_register.add(register[k])
+    return keep
+
+
+# --------------------------------------------------------------------------- the linker
+
+class EstablishmentLinker:
+    """Link records to a register with blocking, comparisons and Fellegi–Sunter or a supervised model.
+
+    Parameters
+    ----------
+    fields : mapping or list of Field, optional
+        Compared fields (``register.resolve_fields``): default name, address, city, postcode, naics.
+    id_column : str
+        Register id column (default ``register_id``).
+    record_id : str, optional
+        Id column of incoming records (used for training pairs and rejects); default
+        ``record_id`` when present.
+    threshold, refer_threshold : float
+        Accept a record's best candidate at confidence >= ``threshold``; refer it to a person
+        between ``refer_threshold`` and ``threshold``; below, ``no-match``.
+    one_to_one : bool
+        A register entry takes at most one record of a batch (greedy by confidence).
+    rules : list of blocking rules, optional (default from the field kinds)
+    k : int
+        Nearest names per record in the n-gram neighbour rule.
+    max_block : int
+        Key blocks with more register records are skipped.
+    em_candidates : int
+        Without training, m and u are estimated by EM on each record's this many closest candidates.
+    exclusive_em : bool
+        In EM, a record's candidates are rivals (at most one is its match), as in linking to a
+        register without duplicates.
+    workers : int
+        Threads for rapidfuzz (-1 = all cores).
+
+    Attributes
+    ----------
+    index_ : RegisterIndex; model_ : FellegiSunterModel or SupervisedModel (after fit or the
+    first link); rejects_ : Rejects of the last ``link``; blocking_ : per-rule pair counts;
+    pairs_ : the last batch's candidate pairs (row positions ``new``, ``register``) with ``confidence``.
+    """
+
+    def __init__(self, fields=None, *, id_column: str = "register_id", record_id: str | None = None,
+                 threshold: float = 0.9, refer_threshold: float = 0.5, one_to_one: bool = False,
+                 rules: Sequence | None = None, k: int = 10, max_block: int = 100, em_candidates: int = 3,
+                 exclusive_em: bool = True, em_records: int = 20_000, workers: int = -1) -> None:
+        self.fields = fields
+        self.id_column = id_column
+        self.record_id = record_id
+        self.threshold = threshold
+        self.refer_threshold = refer_threshold
+        self.one_to_one = one_to_one
+        self.rules = rules
+        self.k = k
+        self.max_block = max_block
+        self.em_candidates = em_candidates
+        self.exclusive_em = exclusive_em
+        self.em_records = em_records
+        self.workers = workers
+
+    # ---------------------------------------------------------------- fitting
+    def _validate(self) -> None:
+        if not 0.0 <= self.refer_threshold <= self.threshold <= 1.0:
+            raise ValueError(f"need 0 <= refer_threshold ({self.refer_threshold}) <= threshold "
+                             f"({self.threshold}) <= 1")
+
+    def fit(self, register: pd.DataFrame | RegisterIndex, training: pd.DataFrame | None = None, *,
+            records: pd.DataFrame | None = None, source: str = "<register>") -> "EstablishmentLinker":
+        """Index the register and learn the classifier.
+
+        Parameters
+        ----------
+        register : DataFrame with ``id_column`` and the field columns, or a built RegisterIndex
+        training : optional labelled records: the field columns plus the register id of each
+            (blank = known not on the register). With only a record id and a register id, the
+            fields are taken from ``records`` by record id. Gives a supervised model.
+        records : records to estimate m/u on by EM when there is no training (default: the
+            first batch passed to ``link``).
+        """
+        self._validate()
+        if isinstance(register, RegisterIndex):
+            self.index_ = register
+        else:
+            self.index_ = RegisterIndex(self.fields, self.id_column).build(register, source=source)
+        self.rules_ = list(self.rules) if self.rules is not None else default_rules(self.index_.fields_, k=self.k)
+        self.model_ = None
+        if training is not None:
+            self.model_ = self._fit_supervised(training, records)
+        elif records is not None:
+            self.model_ = self._fit_unsupervised(records)
+        return self
+
+    def _record_ids(self, frame: pd.DataFrame) -> pd.Series:
+        column = self.record_id or ("record_id" if "record_id" in frame.columns else None)
+        if column is None:
+            return pd.Series(np.arange(1, len(frame) + 1).astype(str), index=frame.index)
+        if column not in frame.columns:
+            raise InputError(f"records: no record id column {column!r}")
+        return frame[column].fillna("").astype(str)
+
+    def _score_input(self, frame: pd.DataFrame, source: str = "<records>"):
+        prepared = self.index_.prepare(frame, source=source)
+        chars, words = self.index_.vectorize(prepared["text"])
+        pairs = candidate_pairs(prepared, self.index_, self.rules_, new_chars=chars, new_words=words,
+                                max_block=self.max_block)
+        features = compare(pairs, prepared, self.index_, new_chars=chars, new_words=words, workers=self.workers)
+        return prepared, chars, words, pairs, features
+
+    def _fit_unsupervised(self, records: pd.DataFrame) -> FellegiSunterModel:
+        records = self._valid_records(records, Rejects(), "<records>")
+        _, _, _, pairs, features = self._score_input(records)
+        return self._fit_em(pairs, features, self.index_.fields_)
+
+    def _fit_em(self, pairs: pd.DataFrame, features: pd.DataFrame, fields, exclusive: bool = True):
+        owner = pairs["new"].to_numpy()
+        records = np.unique(owner)
+        if len(records) > self.em_records:  # EM needs a sample of records, not all of a large batch
+            chosen = np.random.default_rng(0).choice(records, self.em_records, replace=False)
+            subset = np.isin(owner, chosen)
+        else:
+            subset = np.ones(len(pairs), dtype=bool)
+        mask = subset.copy()
+        if self.em_candidates:
+            mask[subset] = fitting_pairs(pairs[subset], features[subset], self.em_candidates)
+        groups = pairs["new"].to_numpy()[mask] if exclusive and self.exclusive_em else None
+        return FellegiSunterModel().fit(agreement_levels(features[mask], fields), groups)
+
+    def _fit_supervised(self, training: pd.DataFrame, records: pd.DataFrame | None) -> SupervisedModel:
+        if self.id_column not in training.columns:
+            raise InputError(f"training: missing column {self.id_column!r} (the register id of each record)")
+        field_columns = [f.column for f in self.index_.fields_ if not f.optional]
+        if not all(c in training.columns for c in field_columns):
+            if records is None:
+                raise InputError(f"training: the file has no field columns ({', '.join(field_columns)}); "
+                                 "give the records it refers to")
+            ids = self._record_ids(training)
+            by_id = records.assign(_id=self._record_ids(records).to_numpy()).drop_duplicates("_id").set_index("_id")
+            missing = ~ids.isin(by_id.index)
+            if missing.any():
+                raise InputError(f"training: {int(missing.sum())} record id(s) not among the records, "
+                                 f"e.g. {', '.join(ids[missing].head(5))}")
+            labels = training[self.id_column].fillna("").astype(str).to_numpy()
+            training = by_id.loc[ids.to_numpy()].reset_index(drop=True)
+            training[self.id_column] = labels
+        training = training.reset_index(drop=True)
+        labels = training[self.id_column].fillna("").astype(str).str.strip()
+        position = pd.Series(np.arange(len(self.index_)), index=self.index_.ids_)
+        unknown = (labels != "") & ~labels.isin(position.index)
+        if unknown.any():
+            raise InputError(f"training: {int(unknown.sum())} register id(s) not in the register, "
+                             f"e.g. {', '.join(labels[unknown].head(5))}")
+        prepared, chars, words, pairs, _ = self._score_input(training, "training")
+        # Every true pair is a positive example even when blocking missed it.
+        truth = pd.DataFrame({"new": np.flatnonzero(labels != ""),
+                              "register": position.reindex(labels[labels != ""]).to_numpy(dtype=np.int64)})
+        pairs = pd.concat([pairs, truth]).drop_duplicates().reset_index(drop=True)
+        features = compare(pairs, prepared, self.index_, new_chars=chars, new_words=words, workers=self.workers)
+        key = set(zip(truth["new"], truth["register"]))
+        y = np.fromiter(((a, b) in key for a, b in zip(pairs["new"], pairs["register"])), dtype=bool,
+                        count=len(pairs)).astype(int)
+        log.info("training: %d pairs, %d matches", len(y), int(y.sum()))
+        return SupervisedModel().fit(features, y)
+
+    # ---------------------------------------------------------------- linking
+    def _valid_records(self, records: pd.DataFrame, rejects: Rejects, source: str,
+                       fields: Sequence[Field] | None = None) -> pd.DataFrame:
+        """``records`` less those with an empty name (added to ``rejects``); missing columns raise."""
+        if not isinstance(records, pd.DataFrame):
+            raise TypeError(f"records must be a pandas DataFrame, got {type(records).__name__}")
+        fields = self.index_.fields_ if fields is None else fields
+        check_fields(records, [f for f in fields if not f.optional], source, "new")
+        names = [f.column for f in fields if f.kind == "name"] or \
+            [f.column for f in fields if f.kind == "person_name"]
+        columns = [c for c in names if c in records.columns]
+        if not columns:
+            return records
+        empty = np.ones(len(records), dtype=bool)
+        for c in columns:
+            empty &= records[c].fillna("").astype(str).str.strip().to_numpy() == ""
+        if empty.any():
+            bad = records[empty]
+            rows = bad[ROW_COLUMN] if ROW_COLUMN in bad.columns else pd.Series(np.flatnonzero(empty) + 1)
+            for row in rows:
+                rejects.add(source, int(row), columns[0], "empty name: nothing to link on", "")
+        return records[~empty]
+
+    def link(self, records: pd.DataFrame, *, rejects: Rejects | None = None,
+             source: str = "<records>") -> pd.DataFrame:
+        """Link a batch: every input column plus ``OUTPUT_COLUMNS`` (records with an empty name
+        are set aside in ``rejects`` / ``self.rejects_``).
+
+        A pure function of the batch once the model is fitted, so a runner can call it per chunk.
+        """
+        if not hasattr(self, "index_"):
+            raise RuntimeError("call fit(register) before link(records)")
+        self._validate()
+        self.rejects_ = rejects if rejects is not None else Rejects()
+        valid = self._valid_records(records, self.rejects_, source).reset_index(drop=True)
+        result = valid.copy()
+        clashes = [c for c in OUTPUT_COLUMNS if c in result.columns]
+        result = result.rename(columns={c: f"{c}_input" for c in clashes})
+        if not len(valid):
+            for c in OUTPUT_COLUMNS:
+                result[c] = pd.Series(dtype=float if c.startswith("confidence") else object)
+            return result
+        _, _, _, pairs, features = self._score_input(valid, source)
+        self.blocking_ = pairs.attrs.get("rules", {})
+        if self.model_ is None:  # unsupervised and not yet fitted: EM on this batch's own pairs
+            self.model_ = self._fit_em(pairs, features, self.index_.fields_)
+        return self._decide(result, pairs, features)
+
+    def _pair_scores(self, features: pd.DataFrame) -> tuple[np.ndarray, pd.DataFrame]:
+        if isinstance(self.model_, FellegiSunterModel):
+            levels = agreement_levels(features, self.index_.fields_)
+            return self.model_.log_odds(levels), self.model_.weights(levels)
+        return self.model_.log_odds(features), self.model_.weights(features)
+
+    def _decide(self, result: pd.DataFrame, pairs: pd.DataFrame, features: pd.DataFrame) -> pd.DataFrame:
+        n = len(result)
+        new = pairs["new"].to_numpy()
+        register = pairs["register"].to_numpy()
+        log_odds, weights = self._pair_scores(features)
+        confidence = exclusive_confidence(new, log_odds)
+        self.pairs_ = pairs.assign(confidence=confidence)
+        order = np.lexsort((-confidence, new))
+        rank = np.arange(len(order)) - np.searchsorted(new[order], new[order], side="left")
+        best = np.full(n, -1)
+        second = np.full(n, -1)
+        best[new[order][rank == 0]] = order[rank == 0]
+        second[new[order][rank == 1]] = order[rank == 1]
+        if self.one_to_one:
+            kept = _greedy_one_to_one(new, register, confidence, self.refer_threshold)
+            assigned = np.full(n, -1)
+            assigned[new[kept]] = np.flatnonzero(kept)
+            lost = (best >= 0) & (assigned < 0) & (confidence[np.maximum(best, 0)] >= self.refer_threshold)
+            best = np.where(assigned >= 0, assigned, best)
+        has = best >= 0
+        conf = np.where(has, confidence[np.maximum(best, 0)], 0.0)
+        decision = np.where(conf >= self.threshold, "accept", np.where(conf >= self.refer_threshold, "refer",
+                                                                        "no-match"))
+        if self.one_to_one:
+            decision = np.where(lost, "no-match", decision)
+        linked = decision != "no-match"
+        at = register[np.maximum(best, 0)]
+        ids = np.where(has & linked, self.index_.ids_[at], "")
+        display = self.index_.display_
+        result["register_id"] = ids
+        result["confidence"] = np.round(conf, 4)
+        result["decision"] = decision
+        result["register_name"] = np.where(has & linked, display["register_name"].to_numpy()[at], "")
+        result["register_address"] = np.where(has & linked, display["register_address"].to_numpy()[at], "")
+        has2 = second >= 0
+        result["register_id_2"] = np.where(has2, self.index_.ids_[register[np.maximum(second, 0)]], "")
+        result["confidence_2"] = np.where(has2, np.round(confidence[np.maximum(second, 0)], 4), np.nan)
+        text = np.full(n, "", dtype=object)
+        text[has] = explain(weights.iloc[best[has]])
+        if self.one_to_one:
+            text[lost] = "register entry taken by a more confident record in this batch"
+        result["explanation"] = np.where(has, text, "no candidate found by blocking")
+        return result
+
+    # ---------------------------------------------------------------- saving
+    _PARAMS = ("id_column", "record_id", "threshold", "refer_threshold", "one_to_one", "k", "max_block",
+               "em_candidates", "exclusive_em", "em_records", "workers")
+
+    def save(self, directory: str | os.PathLike, *, index_directory: str | os.PathLike | None = None) -> dict:
+        """Save the fitted model and settings as an artefact (no pickle); with ``index_directory``
+        the register index is saved there too and found again by ``load``."""
+        if not hasattr(self, "index_") or self.model_ is None:
+            raise RuntimeError("fit the linker (and, without training, link one batch) before saving it")
+        meta = {"params": {p: getattr(self, p) for p in self._PARAMS},
+                "rules": [{"type": type(r).__name__, **asdict(r)} for r in self.rules_]}
+        if index_directory is not None:
+            self.index_.save(index_directory)
+            meta["index"] = os.path.relpath(Path(index_directory).resolve(), Path(directory).resolve().parent)
+        if isinstance(self.model_, FellegiSunterModel):
+            meta.update(model="fellegi-sunter", prior=self.model_.prior_)
+            tables = {"weights": pd.DataFrame({"field": self.model_.m_.index, "m": self.model_.m_.to_numpy(),
+                                               "u": self.model_.u_.to_numpy()})}
+            arrays = {}
+        else:
+            model = self.model_
+            meta.update(model="supervised", intercept=model.intercept_, C=model.C)
+            terms = model.columns_ + [f"missing:{c}" for c in model.indicators_]
+            tables = {"coefficients": pd.DataFrame({"term": terms, "coef": model.coef_, "baseline": model.baseline_})}
+            arrays = {}
+        return save_artefact(directory, MODEL_KIND, tables, arrays=arrays, meta=meta)
+
+    @classmethod
+    def load(cls, directory: str | os.PathLike, index: RegisterIndex | str | os.PathLike | None = None
+             ) -> "EstablishmentLinker":
+        """Load a linker saved by ``save``; ``index`` is a RegisterIndex or its directory
+        (default: the one saved beside the model)."""
+        art = load_artefact(directory, MODEL_KIND)
+        rules = [_RULE_TYPES[spec.pop("type")](**{k: tuple(v) if isinstance(v, list) else v
+                                                   for k, v in spec.items()}) for spec in art.meta["rules"]]
+        linker = cls(rules=rules, **art.meta["params"])
+        if index is None:
+            if "index" not in art.meta:
+                raise ArtefactError(f"{directory}: saved without its register index; pass index=")
+            index = Path(directory).resolve().parent / art.meta["index"]
+        linker.index_ = index if isinstance(index, RegisterIndex) else RegisterIndex.load(index)
+        linker.rules_ = rules
+        if art.meta["model"] == "fellegi-sunter":
+            table = art.tables["weights"]
+            model = FellegiSunterModel()
+            model.m_ = pd.Series(table["m"].to_numpy(dtype=float), index=table["field"].astype(str))
+            model.u_ = pd.Series(table["u"].to_numpy(dtype=float), index=table["field"].astype(str))
+            model.prior_ = float(art.meta["prior"])
+        else:
+            table = art.tables["coefficients"]
+            terms = table["term"].astype(str).tolist()
+            model = SupervisedModel(C=float(art.meta.get("C", 1.0)))
+            model.columns_ = [t for t in terms if not t.startswith("missing:")]
+            model.indicators_ = [t.removeprefix("missing:") for t in terms if t.startswith("missing:")]
+            model.coef_ = table["coef"].to_numpy(dtype=float)
+            model.baseline_ = table["baseline"].to_numpy(dtype=float)
+            model.intercept_ = float(art.meta["intercept"])
+        linker.model_ = model
+        return linker
+
+    # ---------------------------------------------------------------- deduplication
+    def dedupe(self, records: pd.DataFrame, *, rejects: Rejects | None = None,
+               source: str = "<records>") -> pd.DataFrame:
+        """Find duplicates within ``records``: every input column plus ``cluster_id``,
+        ``cluster_size`` and ``duplicate_confidence`` (the best link into its group).
+
+        Pairs whose match probability reaches ``threshold`` are joined; groups are the
+        connected components. Uses the same fields, with a Fellegi–Sunter model fitted on
+        the batch's own candidate pairs. ``pairs_`` and ``pair_probability_`` keep the pairs.
+        """
+        self._validate()
+        self.rejects_ = rejects if rejects is not None else Rejects()
+        fields = [replace(f, register_column=f.column) for f in resolve_fields(self.fields)]
+        valid = self._valid_records(records, self.rejects_, source, fields).reset_index(drop=True)
+        n = len(valid)
+        index = RegisterIndex(fields, "_dedupe_id").build(valid.assign(_dedupe_id=np.arange(n).astype(str)),
+                                                          source=source)
+        rules = list(self.rules) if self.rules is not None else default_rules(index.fields_, k=self.k)
+        pairs = candidate_pairs(index.prepared_, index, rules, new_chars=index.char_matrix_,
+                                new_words=index.word_matrix_, max_block=self.max_block, self_join=True)
+        self.blocking_ = pairs.attrs.get("rules", {})
+        features = compare(pairs, index.prepared_, index, new_chars=index.char_matrix_,
+                           new_words=index.word_matrix_, workers=self.workers)
+        levels = agreement_levels(features, index.fields_)
+        # A record may have several duplicates: no rivalry between its candidates here.
+        self.dedupe_model_ = self._fit_em(pairs, features, index.fields_, exclusive=False)
+        probability = self.dedupe_model_.predict_proba(levels)
+        self.pairs_, self.pair_probability_ = pairs, probability
+        linked = probability >= self.threshold
+        a, b = pairs["new"].to_numpy()[linked], pairs["register"].to_numpy()[linked]
+        _, labels = connected_components(coo_matrix((np.ones(len(a)), (a, b)), shape=(n, n)), directed=False)
+        best = np.zeros(n)
+        np.maximum.at(best, a, probability[linked])
+        np.maximum.at(best, b, probability[linked])
+        result = valid.copy()
+        width = len(str(max(n, 1)))
+        result["cluster_id"] = [f"g{label:0{width}d}" for label in labels]
+        result["cluster_size"] = np.bincount(labels, minlength=1)[labels] if n else []
+        result["duplicate_confidence"] = np.round(best, 4)
+        return result

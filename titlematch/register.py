@@ -1,0 +1,415 @@
+"""The business register as a linking target: fields, prepared values and a saved index.
+
+A register is prepared once: every compared field is normalized (names, USPS-style
+addresses, postcodes, phonetic keys), the register's names are vectorized with two
+TF-IDF models (character 3-grams for blocking, word tokens for IDF-weighted name
+similarity) and the result is saved as a checksummed artefact of Parquet tables and
+``.npy`` arrays. ``titlematch link`` then reads the index instead of the raw register.
+
+Example
+-------
+>>> index = RegisterIndex().build(register_frame)          # doctest: +SKIP
+>>> index.save("register_index")                           # doctest: +SKIP
+>>> index = RegisterIndex.load("register_index")           # doctest: +SKIP
+"""
+from __future__ import annotations
+
+import logging
+import os
+import re
+from dataclasses import asdict, dataclass
+from typing import Iterable, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+from sklearn.feature_extraction.text import TfidfVectorizer
+from unidecode import unidecode
+
+from .artefact import load_artefact, save_artefact
+from .io import ROW_COLUMN, InputError, require_columns
+from .normalize.address import normalize_addresses, normalize_postcodes
+from .normalize.name import normalize_names
+from .normalize.phonetic import phonetic_keys
+
+log = logging.getLogger(__name__)
+
+ARTEFACT_KIND = "register-index"
+
+# Field kinds and what each compares; a kind decides preparation, blocking and comparison.
+KINDS = {
+    "name": "establishment name: normalized key, trade name, legal form, branch number",
+    "address": "street address parsed to USPS Publication 28 form: house number, street, unit",
+    "city": "place name, compared with Jaro-Winkler",
+    "postcode": "postal code, compared exactly and on its first three characters",
+    "industry": "NAICS code, compared on the depth of the shared prefix (2, 3, 4, 6 digits)",
+    "person_name": "a person's given name or surname, compared with Jaro-Winkler and phonetic keys",
+    "string": "any other text, compared with Jaro-Winkler",
+    "number": "a number such as a house number, compared exactly and within a tolerance",
+    "date": "a date as digits (YYYYMMDD), compared exactly and by edit distance",
+    "exact": "a category (state, sex), compared exactly",
+}
+
+# The establishment defaults: role -> kind. ``naics`` is optional: used when both tables have it.
+ESTABLISHMENT_KINDS = {"name": "name", "address": "address", "city": "city", "postcode": "postcode",
+                       "naics": "industry"}
+OPTIONAL_FIELDS = {"naics"}
+
+# Words that never start a blocking key: articles and conjunctions say nothing about the business.
+STOP_WORDS = frozenset({"the", "and", "of", "a", "an", "at", "for", "to", "in", "on", "by", "de", "la", "le",
+                        "el", "los", "las", "y", "et"})
+_NON_WORD = re.compile(r"[^0-9a-z]+")
+_NON_DIGIT = re.compile(r"\D+")
+
+
+@dataclass(frozen=True)
+class Field:
+    """One compared field: its ``name`` (feature prefix), ``kind`` (see ``KINDS``) and the column
+    holding it in the incoming records (``column``) and in the register (``register_column``).
+
+    Example: ``Field("employer", "name", column="employer_name", register_column="name")``.
+    """
+
+    name: str
+    kind: str
+    column: str = ""
+    register_column: str = ""
+    optional: bool = False
+
+    def __post_init__(self) -> None:
+        if self.kind not in KINDS:
+            raise ValueError(f"field {self.name!r}: kind {self.kind!r} is not one of {', '.join(KINDS)}")
+        if not self.column:
+            object.__setattr__(self, "column", self.name)
+        if not self.register_column:
+            object.__setattr__(self, "register_column", self.column)
+
+
+def resolve_fields(fields: Mapping[str, str | Field] | Sequence[Field] | None = None) -> list[Field]:
+    """Turn a field specification into a list of ``Field``.
+
+    ``None`` gives the establishment fields (name, address, city, postcode, optional naics);
+    a mapping ``{"name": "employer_name", "address": "street"}`` overrides columns of those
+    roles (the kind follows the role; an unknown role is a plain ``string``);
+    a list of ``Field`` is taken as it is.
+    """
+    if fields is None:
+        return [Field(role, kind, optional=role in OPTIONAL_FIELDS) for role, kind in ESTABLISHMENT_KINDS.items()]
+    if isinstance(fields, Mapping):
+        resolved = {f.name: f for f in resolve_fields(None)}
+        for role, spec in fields.items():
+            if isinstance(spec, Field):
+                resolved[role] = spec
+            else:
+                kind = ESTABLISHMENT_KINDS.get(role, "string")
+                resolved[role] = Field(role, kind, column=str(spec), optional=role in OPTIONAL_FIELDS)
+        return list(resolved.values())
+    out = list(fields)
+    if not out or not all(isinstance(f, Field) for f in out):
+        raise ValueError("fields must be a mapping of role -> column or a non-empty list of Field")
+    names = [f.name for f in out]
+    if len(set(names)) != len(names):
+        raise ValueError(f"field names must be unique: {names}")
+    return out
+
+
+# --------------------------------------------------------------------------- preparation
+
+def clean_text(values: pd.Series) -> pd.Series:
+    """Lower-case ASCII words separated by single spaces (accents folded with unidecode)."""
+    uniq, inverse = _unique(values)
+    cleaned = [(" ".join(_NON_WORD.sub(" ", unidecode(v).lower()).split())) for v in uniq]
+    return pd.Series(np.asarray(cleaned, dtype=object)[inverse], index=values.index)
+
+
+def _unique(values: pd.Series) -> tuple[list[str], np.ndarray]:
+    codes, uniq = pd.factorize(values.fillna("").astype(str), sort=False)
+    return list(uniq), codes
+
+
+def _first_significant(key: str) -> str:
+    for token in key.split():
+        if token not in STOP_WORDS:
+            return token
+    return ""
+
+
+def _prepare_name(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    uniq, inverse = _unique(values)
+    norm = normalize_names(pd.Series(uniq, dtype=object)).reset_index(drop=True)
+    key = clean_text(norm["key"].fillna("").astype(str))
+    trade = clean_text(norm["trade_name"].fillna("").astype(str))
+    first = key.map(_first_significant)
+    phonetic = pd.Series(phonetic_keys(first.tolist(), "metaphone"), dtype=object).fillna("").astype(str)
+    parts = {"key": key, "trade": trade, "legal_form": clean_text(norm["legal_form"].fillna("").astype(str)),
+             "branch": clean_text(norm["branch"].fillna("").astype(str)), "first": first,
+             "phonetic": phonetic.where(first != "", "")}
+    return {f"{p}.{k}": pd.Series(v.to_numpy()[inverse], index=values.index) for k, v in parts.items()}
+
+
+def _prepare_address(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    uniq, inverse = _unique(values)
+    parsed = normalize_addresses(pd.Series(uniq, dtype=object)).reset_index(drop=True).fillna("").astype(str)
+    street = (parsed["predirectional"] + " " + parsed["street_name"] + " " + parsed["suffix"] + " "
+              + parsed["postdirectional"])
+    direction = (parsed["predirectional"] + " " + parsed["postdirectional"]).str.strip()
+    parts = {"house_number": parsed["house_number"].str.upper().str.strip(),
+             "street": clean_text(street), "street_name": clean_text(parsed["street_name"]),
+             "suffix": parsed["suffix"].str.upper().str.strip(), "direction": direction.str.upper(),
+             "unit": parsed["unit"].str.upper().str.replace(r"[^0-9A-Z]", "", regex=True),
+             "key": parsed["key"].str.upper().str.strip()}
+    return {f"{p}.{k}": pd.Series(v.to_numpy()[inverse], index=values.index) for k, v in parts.items()}
+
+
+def _prepare_postcode(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    uniq, inverse = _unique(values)
+    code = pd.Series(normalize_postcodes(pd.Series(uniq, dtype=object)), dtype=object).fillna("").astype(str)
+    code = code.reset_index(drop=True).str.upper()
+    compact = code.str.replace(r"[^0-9A-Z]", "", regex=True)
+    # The five-digit ZIP (or the whole Canadian code) is the unit compared; ZIP+4 adds a delivery route.
+    main = code.str.split("-").str[0].str.replace(" ", "", regex=False)
+    return {f"{p}.value": pd.Series(main.to_numpy()[inverse], index=values.index),
+            f"{p}.prefix": pd.Series(compact.str[:3].to_numpy()[inverse], index=values.index)}
+
+
+def _prepare_digits(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    digits = values.fillna("").astype(str).str.replace(_NON_DIGIT, "", regex=True)
+    return {f"{p}.value": digits}
+
+
+def _prepare_person_name(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    cleaned = clean_text(values)
+    uniq, inverse = _unique(cleaned)
+    phonetic = pd.Series(phonetic_keys(uniq, "nysiis"), dtype=object).fillna("").astype(str).to_numpy()
+    return {f"{p}.value": cleaned, f"{p}.phonetic": pd.Series(phonetic[inverse], index=values.index)}
+
+
+def _prepare_text(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    return {f"{p}.value": clean_text(values)}
+
+
+# Abbreviations written in place names ("St Louis", "Ft Worth", "N Haverly"); common practice,
+# the directionals as in USPS Publication 28.
+PLACE_ABBREVIATIONS = {"st": "saint", "ste": "sainte", "ft": "fort", "mt": "mount", "pt": "point",
+                       "n": "north", "s": "south", "e": "east", "w": "west", "hts": "heights", "spgs": "springs"}
+
+
+def _prepare_place(values: pd.Series, p: str) -> dict[str, pd.Series]:
+    cleaned = clean_text(values)
+    uniq, inverse = _unique(cleaned)
+    expanded = np.asarray([" ".join(PLACE_ABBREVIATIONS.get(w, w) for w in v.split()) for v in uniq], dtype=object)
+    return {f"{p}.value": pd.Series(expanded[inverse] if len(uniq) else [], index=values.index, dtype=object)}
+
+
+_PREPARERS = {"name": _prepare_name, "address": _prepare_address, "city": _prepare_place,
+              "postcode": _prepare_postcode, "industry": _prepare_digits, "person_name": _prepare_person_name,
+              "string": _prepare_text, "number": _prepare_digits, "date": _prepare_digits, "exact": _prepare_text}
+
+
+def prepare_records(frame: pd.DataFrame, fields: Sequence[Field], *, side: str = "new") -> pd.DataFrame:
+    """Normalize the compared fields of ``frame`` into ``FIELD.PART`` columns plus ``text``.
+
+    ``side`` picks ``Field.column`` ("new") or ``Field.register_column`` ("register").
+    ``text`` is what the TF-IDF models read: the first name field, else the person names joined.
+    """
+    columns: dict[str, pd.Series] = {}
+    for f in fields:
+        column = f.column if side == "new" else f.register_column
+        values = frame[column] if column in frame.columns else pd.Series("", index=frame.index, dtype=object)
+        columns.update(_PREPARERS[f.kind](values, f.name))
+    prepared = pd.DataFrame(columns, index=frame.index)
+    prepared["text"] = text_of(prepared, fields)
+    return prepared.reset_index(drop=True)
+
+
+def text_of(prepared: pd.DataFrame, fields: Sequence[Field]) -> pd.Series:
+    """The text vectorized for blocking and name similarity (see ``prepare_records``)."""
+    names = [f for f in fields if f.kind == "name"]
+    if names:
+        return prepared[f"{names[0].name}.key"]
+    people = [f"{f.name}.value" for f in fields if f.kind == "person_name"]
+    if not people:
+        people = [f"{f.name}.value" for f in fields if f.kind == "string"][:1]
+    if not people:
+        return pd.Series("", index=prepared.index, dtype=object)
+    joined = prepared[people[0]]
+    for column in people[1:]:
+        joined = joined + " " + prepared[column]
+    return joined.str.strip()
+
+
+def check_fields(frame: pd.DataFrame, fields: Sequence[Field], source: str, side: str) -> list[Field]:
+    """Return the fields usable on ``frame``: required ones must exist, missing optional ones are dropped."""
+    usable, missing = [], []
+    for f in fields:
+        column = f.column if side == "new" else f.register_column
+        if column in frame.columns:
+            usable.append(f)
+        elif not f.optional:
+            missing.append(f"{column!r} (field {f.name})")
+    if missing:
+        have = ", ".join(c for c in frame.columns if c != ROW_COLUMN) or "(no columns)"
+        raise InputError(f"{source}: missing column(s) {', '.join(missing)}; the file has: {have}; "
+                         "map other column names with --fields, e.g. --fields name=employer_name")
+    return usable
+
+
+# --------------------------------------------------------------------------- vectorizers
+
+def _char_vectorizer(vocabulary=None) -> TfidfVectorizer:
+    # Character 3-grams inside word boundaries survive typos and word splits (common practice).
+    return TfidfVectorizer(analyzer="char_wb", ngram_range=(3, 3), sublinear_tf=True, dtype=np.float32,
+                           vocabulary=vocabulary)
+
+
+def _word_vectorizer(vocabulary=None) -> TfidfVectorizer:
+    # Word IDF makes "services", "company", "and" count little in a name similarity.
+    return TfidfVectorizer(analyzer="word", token_pattern=r"(?u)\b\w+\b", sublinear_tf=True,
+                           dtype=np.float32, vocabulary=vocabulary)
+
+
+def _vocabulary_table(vectorizer: TfidfVectorizer) -> pd.DataFrame:
+    terms = sorted(vectorizer.vocabulary_.items(), key=lambda item: item[1])
+    return pd.DataFrame({"term": [t for t, _ in terms], "column": [c for _, c in terms]})
+
+
+def _restore_vectorizer(make, table: pd.DataFrame, idf: np.ndarray) -> TfidfVectorizer:
+    vocabulary = dict(zip(table["term"].astype(str), table["column"].astype(int)))
+    vectorizer = make(vocabulary)
+    vectorizer.idf_ = idf
+    return vectorizer
+
+
+def _csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:
+    return {f"{name}_data": matrix.data, f"{name}_indices": matrix.indices, f"{name}_indptr": matrix.indptr,
+            f"{name}_shape": np.asarray(matrix.shape, dtype=np.int64)}
+
+
+def _csr_from(arrays: Mapping[str, np.ndarray], name: str) -> sp.csr_matrix:
+    shape = tuple(int(x) for x in arrays[f"{name}_shape"])
+    return sp.csr_matrix((arrays[f"{name}_data"], arrays[f"{name}_indices"], arrays[f"{name}_indptr"]),
+                         shape=shape)
+
+
+# --------------------------------------------------------------------------- the index
+
+class RegisterIndex:
+    """A business register prepared for linking.
+
+    Parameters
+    ----------
+    fields : mapping or list of Field, optional
+        Compared fields (see ``resolve_fields``); default name, address, city, postcode, naics.
+    id_column : str
+        The register's identifier column; ids must be present and unique.
+
+    Attributes (after ``build`` or ``load``)
+    ----------
+    fields_ : list of Field actually used
+    ids_ : ndarray of register ids (strings)
+    display_ : DataFrame with ``register_name`` and ``register_address`` shown in link output
+    prepared_ : DataFrame of normalized field parts (see ``prepare_records``)
+    char_vectorizer_, word_vectorizer_ : fitted TF-IDF models
+    char_matrix_, word_matrix_ : the register's TF-IDF rows (CSR, L2-normalized)
+    """
+
+    def __init__(self, fields=None, id_column: str = "register_id") -> None:
+        self.fields = fields
+        self.id_column = id_column
+
+    def build(self, register: pd.DataFrame, *, source: str = "<register>") -> "RegisterIndex":
+        """Validate and prepare ``register``; returns self."""
+        if not isinstance(register, pd.DataFrame):
+            raise TypeError(f"register must be a pandas DataFrame, got {type(register).__name__}")
+        require_columns(register, [self.id_column], source)
+        ids = register[self.id_column].fillna("").astype(str).str.strip()
+        rows = register[ROW_COLUMN] if ROW_COLUMN in register.columns else pd.Series(
+            np.arange(1, len(register) + 1), index=register.index)
+        empty = ids == ""
+        if empty.any():
+            shown = ", ".join(str(r) for r in rows[empty].head(10))
+            raise InputError(f"{source}: column {self.id_column!r} is empty in {int(empty.sum())} row(s): "
+                             f"row {shown}; every register record needs an id")
+        duplicated = ids.duplicated(keep=False)
+        if duplicated.any():
+            groups = (pd.DataFrame({"id": ids[duplicated], "row": rows[duplicated].astype(str)})
+                      .groupby("id", sort=False)["row"].agg(", ".join).head(10))
+            shown = "; ".join(f"{i!r} in rows {r}" for i, r in groups.items())
+            raise InputError(f"{source}: column {self.id_column!r} has {int(ids[duplicated].nunique())} "
+                             f"duplicated id(s): {shown}")
+        self.fields_ = check_fields(register, resolve_fields(self.fields), source, "register")
+        self.ids_ = ids.to_numpy(dtype=object)
+        self.display_ = self._display(register)
+        self.prepared_ = prepare_records(register, self.fields_, side="register")
+        text = self.prepared_["text"]
+        self.char_vectorizer_ = _char_vectorizer()
+        self.word_vectorizer_ = _word_vectorizer()
+        nonempty = text[text != ""]
+        if nonempty.empty:
+            nonempty = pd.Series(["_"], dtype=object)  # an all-empty register still gets a usable model
+        self.char_vectorizer_.fit(nonempty)
+        self.word_vectorizer_.fit(nonempty)
+        self.char_matrix_, self.word_matrix_ = self.vectorize(text)
+        log.info("%s: register index of %d records, %d character n-grams, %d words", source, len(ids),
+                 len(self.char_vectorizer_.vocabulary_), len(self.word_vectorizer_.vocabulary_))
+        return self
+
+    def _display(self, register: pd.DataFrame) -> pd.DataFrame:
+        def raw(kind_names: Iterable[str]) -> pd.Series:
+            cols = [f.register_column for f in self.fields_ if f.kind in kind_names]
+            if not cols:
+                return pd.Series("", index=register.index, dtype=object)
+            joined = register[cols[0]].fillna("").astype(str)
+            if not any(f.kind == "name" for f in self.fields_):
+                for c in cols[1:]:
+                    joined = joined + " " + register[c].fillna("").astype(str)
+            return joined.str.strip()
+        names = raw(["name"]) if any(f.kind == "name" for f in self.fields_) else raw(["person_name"])
+        return pd.DataFrame({"register_name": names.to_numpy(dtype=object),
+                             "register_address": raw(["address"]).to_numpy(dtype=object)})
+
+    def __len__(self) -> int:
+        return len(self.ids_)
+
+    def prepare(self, frame: pd.DataFrame, *, source: str = "<records>") -> pd.DataFrame:
+        """Prepare incoming records with the register's fields (``Field.column`` names)."""
+        check_fields(frame, [f for f in self.fields_ if not f.optional], source, "new")
+        return prepare_records(frame, self.fields_, side="new")
+
+    def vectorize(self, text: pd.Series) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+        """Character and word TF-IDF rows for ``text`` (L2-normalized CSR)."""
+        values = text.fillna("").astype(str)
+        return (self.char_vectorizer_.transform(values).tocsr(), self.word_vectorizer_.transform(values).tocsr())
+
+    def save(self, directory: str | os.PathLike) -> dict:
+        """Save as a checksummed artefact (Parquet + .npy, no pickle)."""
+        register = pd.concat([pd.DataFrame({"register_id": self.ids_}), self.display_.reset_index(drop=True)],
+                             axis=1)
+        arrays = {"char_idf": self.char_vectorizer_.idf_, "word_idf": self.word_vectorizer_.idf_}
+        arrays.update(_csr_arrays("char_matrix", self.char_matrix_))
+        arrays.update(_csr_arrays("word_matrix", self.word_matrix_))
+        meta = {"id_column": self.id_column, "fields": [asdict(f) for f in self.fields_], "records": len(self)}
+        return save_artefact(directory, ARTEFACT_KIND,
+                             {"register": register, "prepared": self.prepared_,
+                              "char_vocabulary": _vocabulary_table(self.char_vectorizer_),
+                              "word_vocabulary": _vocabulary_table(self.word_vectorizer_)},
+                             arrays=arrays, meta=meta)
+
+    @classmethod
+    def load(cls, directory: str | os.PathLike) -> "RegisterIndex":
+        """Load an index saved by ``save``; raises ``ArtefactError`` if it was altered."""
+        art = load_artefact(directory, ARTEFACT_KIND)
+        fields = [Field(**spec) for spec in art.meta["fields"]]
+        index = cls(fields=fields, id_column=art.meta.get("id_column", "register_id"))
+        index.fields_ = fields
+        register = art.tables["register"]
+        index.ids_ = register["register_id"].astype(str).to_numpy(dtype=object)
+        index.display_ = register[["register_name", "register_address"]].astype(str).reset_index(drop=True)
+        index.prepared_ = art.tables["prepared"].astype(str)
+        index.char_vectorizer_ = _restore_vectorizer(_char_vectorizer, art.tables["char_vocabulary"],
+                                                     art.arrays["char_idf"])
+        index.word_vectorizer_ = _restore_vectorizer(_word_vectorizer, art.tables["word_vocabulary"],
+                                                     art.arrays["word_idf"])
+        index.char_matrix_ = _csr_from(art.arrays, "char_matrix")
+        index.word_matrix_ = _csr_from(art.arrays, "word_matrix")
+        return index
