@@ -6,10 +6,15 @@ import logging
 from dataclasses import replace
 from pathlib import Path
 
-from ..io import InputError, Rejects, read_table, rejects_path_for, write_table
-from ..linking import EstablishmentLinker
+import numpy as np
+import pandas as pd
+
+from ..io import ROW_COLUMN, InputError, Rejects, TableReader, read_table, rejects_path_for, write_table
+from ..linking import OUTPUT_COLUMNS, EstablishmentLinker
 from ..progress import Summary
 from ..register import RegisterIndex, resolve_fields
+from ..runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN, run_chunked
+from ._run import add_run_arguments, run_arguments
 
 ORDER = 40
 log = logging.getLogger(__name__)
@@ -60,7 +65,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--workers", type=int, default=-1, help="threads for string comparisons (-1 = all)")
     parser.add_argument("--register-fields", metavar="ROLE=COLUMN,...",
                         help="register column names when they differ from the records' (same syntax as --fields)")
-    add_common_field_options(parser)
+    parser.add_argument("--id-col", default="register_id", help="register id column (default register_id)")
+    add_run_arguments(parser)
     return parser
 
 
@@ -82,35 +88,73 @@ def load_register(args, fields, rejects: Rejects) -> RegisterIndex:
     return RegisterIndex(fields, args.id_col).build(frame, source=str(path))
 
 
+class LinkStep:
+    """The per-chunk step of ``titlematch link``: a fitted linker applied to one chunk. Records the
+    linker sets aside (an empty name) come back in place, marked for the runner's rejects file."""
+
+    def __init__(self, linker: EstablishmentLinker, source: str):
+        self.linker, self.source = linker, source
+
+    def __call__(self, chunk: pd.DataFrame) -> pd.DataFrame:
+        rejects = Rejects()
+        result = self.linker.link(chunk, rejects=rejects, source=self.source)
+        added = [c for c in result.columns if c not in chunk.columns or c in OUTPUT_COLUMNS]
+        position = pd.Series(np.arange(len(chunk)), index=chunk[ROW_COLUMN].to_numpy())
+        out = chunk.reset_index(drop=True).copy()
+        for column in added:
+            values = pd.Series(pd.NA, index=out.index, dtype=object)
+            values.iloc[position.loc[result[ROW_COLUMN].to_numpy()].to_numpy()] = result[column].to_numpy()
+            out[column] = values
+        refused = rejects.frame()
+        out[REJECT_REASON_COLUMN] = ""
+        out[REJECT_COLUMN_COLUMN] = ""
+        if len(refused):
+            at = position.loc[refused["row"].to_numpy()].to_numpy()
+            out.loc[at, REJECT_REASON_COLUMN] = refused["reason"].to_numpy()
+            out.loc[at, REJECT_COLUMN_COLUMN] = refused["column"].to_numpy()
+        return out
+
+
 def run(args) -> int:
     summary = Summary("link", args.quiet)
-    rejects = Rejects()
-    records = read_table(args.file, encoding=args.encoding, rejects=rejects)
     fields = _fields(args)
     linker = EstablishmentLinker(fields, id_column=args.id_col, record_id=args.record_id,
                                  threshold=args.threshold, refer_threshold=args.refer_threshold,
                                  one_to_one=args.one_to_one, k=args.neighbours, max_block=args.max_block,
                                  workers=args.workers)
-    if args.dedupe:
+    rejects = Rejects()
+    if args.dedupe:  # duplicates can be anywhere in the file: it is read whole
+        records = read_table(args.file, encoding=args.encoding, rejects=rejects)
         result = linker.dedupe(records, rejects=rejects, source=args.file)
         write_table(result, args.out)
         summary.set(rows_in=len(records), groups=result["cluster_id"].nunique(),
                     records_with_duplicates=int((result["cluster_size"] > 1).sum()), rejected=len(rejects.rows()))
-    else:
-        if not args.register:
-            raise InputError("link: give --register FILE_OR_INDEX (or --dedupe to search FILE itself)")
-        index = load_register(args, fields, rejects)
-        training = None
-        if args.training:
-            training = read_table(args.training, encoding=args.encoding, rejects=rejects)
-        # Without training, m and u are estimated by EM on this file's own candidate pairs.
-        linker.fit(index, training, records=records if training is not None else None)
-        result = linker.link(records, rejects=rejects, source=args.file)
-        write_table(result, args.out)
-        counts = result["decision"].value_counts()
-        summary.set(rows_in=len(records), accepted=counts.get("accept", 0), referred=counts.get("refer", 0),
-                    no_match=counts.get("no-match", 0), rejected=len(rejects.rows()))
-    if len(rejects):
-        rejects.write(rejects_path_for(args.out))
+        if len(rejects):
+            rejects.write(rejects_path_for(args.out))
+        summary.print()
+        return 0
+    if not args.register:
+        raise InputError("link: give --register FILE_OR_INDEX (or --dedupe to search FILE itself)")
+    index = load_register(args, fields, rejects)
+    training = read_table(args.training, encoding=args.encoding, rejects=rejects) if args.training else None
+    sample = next(TableReader(args.file, chunk_rows=linker.em_records, encoding=args.encoding).chunks()).frame
+    linker.fit(index, training, records=sample if training is not None else None)
+    if linker.model_ is None:
+        # Without training, m and u are estimated by EM once, on the file's first records, and then
+        # kept: every chunk (and every Dask worker) is scored with the same weights.
+        linker.link(sample, rejects=Rejects(), source=args.file)
+    options = {"command": "link", "register": str(Path(args.register).resolve()), "fields": args.fields,
+               "register_fields": args.register_fields, "id_col": args.id_col, "threshold": args.threshold,
+               "refer_threshold": args.refer_threshold, "one_to_one": args.one_to_one, "training": args.training,
+               "neighbours": args.neighbours, "max_block": args.max_block}
+    result = run_chunked(args.file, args.out, LinkStep(linker, str(args.file)), options=options,
+                         desc="link records", **run_arguments(args))
+    decisions = (pd.read_parquet(result.output, columns=["decision"]) if str(result.output).endswith((".parquet", ".pq"))
+                 else pd.read_csv(result.output, usecols=["decision"], dtype=str, keep_default_na=False))
+    counts = decisions["decision"].value_counts()
+    summary.set(rows_in=result.rows_in, accepted=counts.get("accept", 0), referred=counts.get("refer", 0),
+                no_match=counts.get("no-match", 0), rejected=result.rows_rejected + len(rejects.rows()))
+    if len(rejects):  # register rows refused while building the index
+        rejects.write(rejects_path_for(Path(args.out).with_name(Path(args.out).stem + ".register")))
     summary.print()
     return 0
