@@ -1,4 +1,8 @@
-"""Benchmark: streaming a big CSV through the title normalizer, against reading it whole with pandas.
+"""Benchmark: streaming a big CSV through ``titlematch code`` (or the title normalizer), against
+reading it whole with pandas.
+
+With ``--step code`` (the default) the titles are coded against a dictionary built from the
+invented Lakeshore scenario's three past years; ``--step normalize`` runs the title normalizer.
 
 The input is ``--rows`` job titles drawn Zipf-like from the synthetic pool of ``bench_normalize``
 (written from the O*NET-SOC 2019 titles), one CSV with an id and a title column. Each case runs in
@@ -35,7 +39,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _common import table  # noqa: E402
 from bench_normalize import sample_rows, title_pool  # noqa: E402
 
-from titlematch.runner import file_sha256  # noqa: E402
+from titlematch.io import file_sha256  # noqa: E402
 
 CASES = ("pandas", "runner", "dask-1", "dask-2")
 
@@ -52,11 +56,15 @@ def make_input(path: Path, rows: int, pool_size: int) -> None:
 
 
 # -- one case, in a child process ---------------------------------------------------------------------
-def run_case(case: str, source: Path, out: Path, chunk_rows: int) -> dict:
-    from titlematch.cli.normalize import NormalizeStep
+def run_case(case: str, source: Path, out: Path, chunk_rows: int, dictionary: str | None = None) -> dict:
     from titlematch.runner import run_chunked
 
-    step = NormalizeStep("title", "title", str(source))
+    if dictionary:
+        from titlematch.cli.code import CodeStep
+        step = CodeStep(dictionary, None, "title", "context")
+    else:
+        from titlematch.cli.normalize import NormalizeStep
+        step = NormalizeStep("title", "title", str(source))
     info: dict = {"case": case}
     if case == "pandas":
         start = time.perf_counter()
@@ -99,9 +107,9 @@ def tree_rss(process: psutil.Process) -> int:
     return total
 
 
-def measure(case: str, source: Path, out: Path, chunk_rows: int) -> dict:
+def measure(case: str, source: Path, out: Path, chunk_rows: int, dictionary: str | None = None) -> dict:
     command = [sys.executable, __file__, "--case", case, "--input", str(source), "--out", str(out),
-               "--chunk-rows", str(chunk_rows)]
+               "--chunk-rows", str(chunk_rows)] + (["--dictionary", dictionary] if dictionary else [])
     child = subprocess.Popen(command, stdout=subprocess.PIPE, text=True)
     watched = psutil.Process(child.pid)
     peak = 0
@@ -141,18 +149,28 @@ def main(argv=None) -> int:
     parser.add_argument("--case", choices=CASES, help=argparse.SUPPRESS)  # child mode
     parser.add_argument("--input", help=argparse.SUPPRESS)
     parser.add_argument("--out", help=argparse.SUPPRESS)
+    parser.add_argument("--dictionary", help=argparse.SUPPRESS)
+    parser.add_argument("--step", choices=("code", "normalize"), default="code")
     args = parser.parse_args(argv)
     if args.case:
-        print(json.dumps(run_case(args.case, Path(args.input), Path(args.out), args.chunk_rows)))
+        print(json.dumps(run_case(args.case, Path(args.input), Path(args.out), args.chunk_rows, args.dictionary)))
         return 0
     with tempfile.TemporaryDirectory(prefix="bench_stream_") as tmp:
+        dictionary = None
+        if args.step == "code":
+            from titlematch.coder import TitleCoder
+            from titlematch.scenario import classification, make_title_scenario
+            past = make_title_scenario(records_per_year=20_000, new_records=100, gold_records=50)["past"]
+            dictionary = str(Path(tmp) / "dictionary")
+            TitleCoder().fit(past, past["code"], classification=classification()).save(dictionary)
+        print(f"step: {args.step}")
         for rows in args.rows:
             source = Path(tmp) / f"titles_{rows}.csv"
             make_input(source, rows, args.pool)
             results = []
             for case in args.cases:
                 out = Path(tmp) / f"{case}_{rows}.csv"
-                results.append(measure(case, source, out, args.chunk_rows))
+                results.append(measure(case, source, out, args.chunk_rows, dictionary))
                 out.unlink()
             report(rows, results)
             source.unlink()
