@@ -71,7 +71,7 @@ def test_dask_engine_output_is_byte_identical_to_local(tmp_path, client, suffix)
     # it), not sent with each of the 18 chunks
     unpacked = marker.read_text().split()
     assert remote.chunks == 18
-    assert 1 <= len(unpacked) <= 4 and len(set(unpacked)) <= 2
+    assert len(unpacked) in (1, 2, 3, 4) and len(set(unpacked)) <= 2
 
 
 def test_process_dask_matches_the_local_step_row_for_row(client):
