@@ -54,44 +54,54 @@ CONTEXT_PRIOR = 2.0     # pseudo-records pulling a context token's code share to
 CONTEXT_MIN_WEIGHT = 3.0  # a token must have been seen with the title this often to be the telling one
 
 
-def _telling_token(frame: pd.DataFrame, weight: np.ndarray, purity: np.ndarray, by: list[str]) -> np.ndarray:
-    """Mark, per group, the token with the purest code distribution among those seen often enough
-    (the whole context when it qualifies, since it is the most specific)."""
+def _telling_token(frame: pd.DataFrame, weight: np.ndarray, purity: np.ndarray, by: list[str]) -> pd.DataFrame:
+    """Per group, the token with the purest code distribution among those seen often enough (the
+    whole context first when it qualifies, since it is the most specific): columns ``by + [token]``."""
     enough = np.nan_to_num(weight) >= CONTEXT_MIN_WEIGHT
-    rank = np.where(enough, np.nan_to_num(purity) + 0.5 * frame["token"].str.startswith("=").to_numpy(), -1.0)
-    order = pd.DataFrame({**{b: frame[b].to_numpy() for b in by}, "rank": rank, "w": np.nan_to_num(weight),
-                          "token": frame["token"].to_numpy(), "pos": np.arange(len(frame))})
+    whole = np.fromiter((t[:1] == "=" for t in frame["token"]), dtype=bool, count=len(frame))
+    rank = np.where(enough, np.nan_to_num(purity) + 0.5 * whole, -1.0)
+    order = frame[by + ["token"]].assign(rank=rank, w=np.nan_to_num(weight))
     order = order.sort_values(by + ["rank", "w", "token"], ascending=[True] * len(by) + [False, False, True])
     best = order.drop_duplicates(by)
-    best = best[best["rank"] >= 0][by + ["token"]]
-    keys = by + ["token"]
-    chosen = pd.MultiIndex.from_frame(order.sort_values("pos")[keys]).isin(pd.MultiIndex.from_frame(best))
-    return np.asarray(chosen)  # every code of the record is read under the same token
+    return best[best["rank"] >= 0][by + ["token"]]
 
 
 def _context_features(cands: pd.DataFrame, unit_tokens: pd.Series, ctx: ContextTables) -> pd.DataFrame:
     """The code's share among records sharing the unit's most telling context token: within the
     best key (``ctx_share``) and over all keys (``ctx_global``). One token decides for every code
     of a record, the purest one seen often enough, since words shared by every context
-    (``school``) say nothing; shares are shrunk toward the code's overall share."""
-    exploded = cands[["row", "unit", "key", "code", "share", "code_prior_share"]].merge(
-        unit_tokens.rename("token").explode().dropna().reset_index().rename(columns={"index": "unit"}), on="unit")
-    if not len(exploded):
-        return pd.DataFrame({"ctx_share": np.nan, "ctx_global": np.nan}, index=cands["row"])
-    kt = pd.MultiIndex.from_arrays([exploded["key"], exploded["token"]])
-    ktc = pd.MultiIndex.from_arrays([exploded["key"], exploded["token"], exploded["code"]])
-    tc = pd.MultiIndex.from_arrays([exploded["token"], exploded["code"]])
-    key_total = ctx.key_token.reindex(kt).to_numpy()
-    in_key = ctx.key_token_code.reindex(ktc).fillna(0).to_numpy()
-    local = _telling_token(exploded, key_total, ctx.key_token_purity.reindex(kt).to_numpy(), ["unit", "key"])
-    exploded["ctx_share"] = np.where(local, (in_key + CONTEXT_PRIOR * exploded["share"])
-                                     / (np.nan_to_num(key_total) + CONTEXT_PRIOR), np.nan)
-    token_total = ctx.token.reindex(exploded["token"]).to_numpy()
-    in_all = ctx.token_code.reindex(tc).fillna(0).to_numpy()
-    wide = _telling_token(exploded, token_total, ctx.token_purity.reindex(exploded["token"]).to_numpy(), ["unit"])
-    exploded["ctx_global"] = np.where(wide, (in_all + CONTEXT_PRIOR * exploded["code_prior_share"])
-                                      / (np.nan_to_num(token_total) + CONTEXT_PRIOR), np.nan)
-    return exploded.groupby("row")[["ctx_share", "ctx_global"]].max()
+    (``school``) say nothing; shares are shrunk toward the code's overall share.
+
+    The token is chosen once per (record, dictionary title) and once per record, not per
+    candidate code: the choice does not depend on the code, and it keeps large batches quick.
+    """
+    tokens = unit_tokens.rename("token").explode().dropna().reset_index().rename(columns={"index": "unit"})
+    out = pd.DataFrame({"ctx_share": np.nan, "ctx_global": np.nan}, index=cands["row"].to_numpy())
+    if not len(tokens):
+        return out
+    pairs = cands[["unit", "key"]].drop_duplicates().merge(tokens, on="unit")
+    kt = pd.MultiIndex.from_arrays([pairs["key"], pairs["token"]])
+    local = _telling_token(pairs, ctx.key_token.reindex(kt).to_numpy(), ctx.key_token_purity.reindex(kt).to_numpy(),
+                           ["unit", "key"])
+    wide = _telling_token(tokens, ctx.token.reindex(tokens["token"]).to_numpy(),
+                          ctx.token_purity.reindex(tokens["token"]).to_numpy(), ["unit"])
+    rows = cands[["row", "unit", "key", "code", "share", "code_prior_share"]]
+    with_local = rows.merge(local, on=["unit", "key"])
+    if len(with_local):
+        ktc = pd.MultiIndex.from_arrays([with_local["key"], with_local["token"], with_local["code"]])
+        kt = pd.MultiIndex.from_arrays([with_local["key"], with_local["token"]])
+        in_key = ctx.key_token_code.reindex(ktc).fillna(0).to_numpy()
+        total = ctx.key_token.reindex(kt).to_numpy()
+        out.loc[with_local["row"].to_numpy(), "ctx_share"] = (
+            (in_key + CONTEXT_PRIOR * with_local["share"].to_numpy()) / (total + CONTEXT_PRIOR))
+    with_wide = rows.merge(wide, on="unit")
+    if len(with_wide):
+        tc = pd.MultiIndex.from_arrays([with_wide["token"], with_wide["code"]])
+        in_all = ctx.token_code.reindex(tc).fillna(0).to_numpy()
+        total = ctx.token.reindex(with_wide["token"]).to_numpy()
+        out.loc[with_wide["row"].to_numpy(), "ctx_global"] = (
+            (in_all + CONTEXT_PRIOR * with_wide["code_prior_share"].to_numpy()) / (total + CONTEXT_PRIOR))
+    return out
 
 
 def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, units: pd.DataFrame,
