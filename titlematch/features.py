@@ -172,22 +172,29 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
                        / vote_total.reindex(best["query"]).to_numpy())
 
     # to units: every unit of a query shares its candidates; context differs per unit
-    unit_frame = pd.DataFrame({"unit": np.arange(len(units)), "query": q_of_unit})
-    cands = unit_frame.merge(best, on="query")
+    best = best[[c for c in best.columns if c not in ("own", "evidence", "key_vote", "vote")]]
+    best = best.sort_values(["query", "code"]).reset_index(drop=True)
+    cands = _repeat_for_units(best, q_of_unit)
     # the classifier reads title and context, so it works per distinct (query, context)
     reads = pd.DataFrame({"query": q_of_unit, "context": units["context"].fillna("").to_numpy()})
     distinct = reads.drop_duplicates().reset_index(drop=True)
     read_of_unit = pd.MultiIndex.from_frame(distinct).get_indexer(pd.MultiIndex.from_frame(reads))
     clf = index.classify(qtext[distinct["query"].to_numpy()], distinct["context"].to_numpy())
     clf["clf_rank"] = clf.groupby("query")["prob"].rank(ascending=False, method="first")
-    clf = clf.rename(columns={"query": "read", "prob": "clf_prob"})
-    by_read = pd.DataFrame({"unit": np.arange(len(units)), "read": read_of_unit, "query": q_of_unit})
-    clf = by_read.merge(clf, on="read").drop(columns="read")
-    cands = cands.merge(clf, on=["unit", "query", "code"], how="outer")
+    clf = _repeat_for_units(clf.rename(columns={"query": "read", "prob": "clf_prob"})
+                            .sort_values(["read", "code"]).reset_index(drop=True), read_of_unit, by="read")
+    clf["query"] = q_of_unit[clf["unit"].to_numpy()]
+    # codes found by the classifier alone join the others; the rest take its probability and rank
+    found = pd.MultiIndex.from_arrays([cands["unit"], cands["code"]])
+    offered = pd.MultiIndex.from_arrays([clf["unit"], clf["code"]])
+    from_clf = clf.set_index(offered)
+    cands["clf_prob"] = from_clf["clf_prob"].reindex(found).fillna(0.0).to_numpy()
+    cands["clf_rank"] = from_clf["clf_rank"].reindex(found).fillna(99.0).to_numpy()
     fill = {"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0, "sim_char": 0.0, "sim_word": 0.0,
             "strength": 0.0, "share": 0.0, "share_evidence": 0.0, "support": 0.0, "code_weight": 0.0,
             "key_weight": 0.0, "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
-    cands = cands.fillna(fill)
+    extra = clf[~offered.isin(found)].assign(**{k: v for k, v in fill.items() if k not in clf.columns})
+    cands = pd.concat([cands, extra[cands.columns].astype(cands.dtypes.to_dict())], ignore_index=True)
     # the classifier's probability for codes found by other sources too
     missing = cands["clf_rank"] >= 99
     if missing.any():
@@ -247,6 +254,21 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands["code"] = code_strings
     cands["key"] = key_text
     return cands[["unit", "code", "key"] + FEATURES]
+
+
+def _repeat_for_units(table: pd.DataFrame, owner_of_unit: np.ndarray, by: str = "query") -> pd.DataFrame:
+    """Rows of ``table`` (sorted by ``by``) repeated for every unit whose owner is their ``by`` value,
+    with a ``unit`` column: a positional take, much cheaper than a merge on wide frames."""
+    owners = table[by].to_numpy()
+    starts = np.searchsorted(owners, np.arange(len(owner_of_unit) and owner_of_unit.max() + 1), side="left")
+    ends = np.searchsorted(owners, np.arange(len(owner_of_unit) and owner_of_unit.max() + 1), side="right")
+    counts = (ends - starts)[owner_of_unit]
+    unit = np.repeat(np.arange(len(owner_of_unit)), counts)
+    offset = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    take = np.repeat(starts[owner_of_unit], counts) + offset
+    out = table.iloc[take].reset_index(drop=True)
+    out.insert(0, "unit", unit)
+    return out.drop(columns=[by]) if by != "query" else out
 
 
 def _with_global_context(cands: pd.DataFrame) -> np.ndarray:
