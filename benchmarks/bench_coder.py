@@ -102,10 +102,19 @@ def scale_run(args, soc) -> int:
             t0 = time.perf_counter()
             big_coder.code(big["new"])
             t_big_code = time.perf_counter() - t0
+            # real files repeat heavily: 1M titles drawn Zipf-like from 30,000 (bench_normalize's pool)
+            from bench_normalize import sample_rows, title_pool
+            repeated = pd.DataFrame({"title": sample_rows(title_pool(30_000), 1_000_000).to_numpy()})
+            t0 = time.perf_counter()
+            big_coder.code(repeated)
+            t_repeated = time.perf_counter() - t0
         rate = len(big["new"]) / t_big_code
         print(f"\nscale: build from {len(big['past']):,} records {t_big:.1f} s (target < 120 s); "
-              f"coding {len(big['new']):,} titles {t_big_code:.1f} s = {rate:,.0f} titles/s (target >= 25,000); "
               f"peak memory {mem.peak_mb:,.0f} MB (target < 4,096 MB)")
+        print(f"coding (target >= 25,000 titles/s): the scenario's new year, {len(big['new']):,} titles "
+              f"({big['new'][['title', 'context']].drop_duplicates().shape[0]:,} distinct title + context), "
+              f"{t_big_code:.1f} s = {rate:,.0f} titles/s; 1,000,000 repetitive titles "
+              f"({repeated['title'].nunique():,} distinct), {t_repeated:.1f} s = {1e6 / t_repeated:,.0f} titles/s")
     return 0
 
 
