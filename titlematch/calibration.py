@@ -69,9 +69,10 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
         evaluated_on = "held-out past records against production codes (less reliable than a gold sample)"
     conf, machine = top["confidence"].to_numpy(), top["code"].to_numpy(dtype=object)
     correct = (machine == expert).astype(int)
-    target = min_accuracy if (min_accuracy is not None or manual is not None) else DEFAULT_MIN_ACCURACY
-    choice = choose_threshold(conf, machine, expert, manual, min_accuracy=target if manual is None or
-                              min_accuracy is not None else None, n_boot=n_boot, seed=random_state)
+    if min_accuracy is None and manual is None:  # without manual codes there is no "no worse than manual"
+        min_accuracy = DEFAULT_MIN_ACCURACY
+    choice = choose_threshold(conf, machine, expert, manual, min_accuracy=min_accuracy, n_boot=n_boot,
+                              seed=random_state)
     model.threshold_ = float(choice.threshold)
     accepted = conf >= model.threshold_
     groups = per_major_group(expert[accepted], machine[accepted]) if accepted.any() else pd.DataFrame()
