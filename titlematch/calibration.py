@@ -22,6 +22,7 @@ from .io import write_table
 from .labels import gold_labels, history_labels, top_candidates
 from .metrics import brier_score, expected_calibration_error, log_loss, per_major_group, reliability_table
 from .plots import plot_automation_curve, plot_reliability
+from .progress import Stages
 from .routing import DEFAULT_MIN_ACCURACY, choose_threshold
 
 
@@ -35,19 +36,23 @@ class CalibrationResult:
 
 
 def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accuracy: float | None = None,
-              n_boot: int = 500, random_state: int = 0, max_units: int = 20_000) -> CalibrationResult:
+              n_boot: int = 500, random_state: int = 0, max_units: int = 20_000,
+              quiet: bool = True) -> CalibrationResult:
     """Learn a confidence model for ``coder`` and choose its threshold.
 
     ``gold`` has ``title`` [, ``context``], ``code`` (expert) and optionally ``manual_code``.
     Without it the threshold is chosen on held-out history against production codes, which the
     report marks as less reliable.
     """
+    stages = Stages(4, "calibrate", quiet)
     train = history_labels(coder.dictionary_, max_units=max_units, random_state=random_state)
+    stages.step("labels from history")
     model = ConfidenceModel(random_state=random_state)
     if train["label"].nunique() == 2:
         model.fit(train[FEATURES], train["label"], groups=train["record"], sample_weight=train["weight"])
     else:
         model.fit_unsupervised(train)
+    stages.step(f"model: {model.base_name_}")
     if gold is not None:
         feats = gold_labels(coder, gold)
         model.recalibrate(feats[FEATURES], feats["label"], groups=feats["record"])
@@ -67,6 +72,7 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
         expert = _recorded_codes(coder, train, n_records)
         manual = None
         evaluated_on = "held-out past records against production codes (less reliable than a gold sample)"
+    stages.step("confidences on " + ("the gold sample" if gold is not None else "held-out history"))
     conf, machine = top["confidence"].to_numpy(), top["code"].to_numpy(dtype=object)
     correct = (machine == expert).astype(int)
     if min_accuracy is None and manual is None:  # without manual codes there is no "no worse than manual"
@@ -74,6 +80,8 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     choice = choose_threshold(conf, machine, expert, manual, min_accuracy=min_accuracy, n_boot=n_boot,
                               seed=random_state)
     model.threshold_ = float(choice.threshold)
+    stages.step("threshold")
+    stages.close()
     accepted = conf >= model.threshold_
     groups = per_major_group(expert[accepted], machine[accepted]) if accepted.any() else pd.DataFrame()
     report = {

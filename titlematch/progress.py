@@ -37,3 +37,19 @@ class Summary:
 
     def print(self) -> None:
         print(self.line())  # --quiet silences progress bars, never the summary
+
+
+class Stages:
+    """A progress bar over the named stages of a long step (silent when ``quiet``)."""
+
+    def __init__(self, total: int, desc: str, quiet: bool = False) -> None:
+        self._bar = None if quiet else tqdm(total=total, desc=desc, file=sys.stderr, leave=False)
+
+    def step(self, name: str) -> None:
+        if self._bar is not None:
+            self._bar.set_postfix_str(name)
+            self._bar.update(1)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()

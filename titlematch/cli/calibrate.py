@@ -34,7 +34,8 @@ def run(args) -> int:
         gold = read_table(args.gold, required=("title", "code"))
     if args.min_accuracy is not None and not 0 < args.min_accuracy <= 1:
         raise SystemExit(f"titlematch calibrate: --min-accuracy must be in (0, 1], got {args.min_accuracy}")
-    result = calibrate(coder, gold, min_accuracy=args.min_accuracy, n_boot=args.bootstrap, random_state=args.seed)
+    result = calibrate(coder, gold, min_accuracy=args.min_accuracy, n_boot=args.bootstrap, random_state=args.seed,
+                       quiet=args.quiet)
     paths = save_calibration(result, args.out)
     r = result.report
     print(result.choice.describe())

@@ -29,9 +29,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args) -> int:
     from ..coder import TitleCoder
     from ..dictionary import TitleDictionary, _read_records
-    from ..progress import Summary
+    from ..progress import Stages, Summary
 
     summary = Summary("dictionary", args.quiet)
+    stages = Stages(3, "dictionary", args.quiet)
     cols = dict(title_col=args.title_col, code_col=args.code_col, context_col=args.context_col,
                 year_col=args.year_col)
     if args.update:
@@ -42,8 +43,12 @@ def run(args) -> int:
     else:
         dictionary = TitleDictionary.from_files(args.past, args.classification, half_life=args.half_life,
                                                 code_level=args.code_level, source=args.source, **cols)
+    stages.step("records counted")
     coder = TitleCoder.from_dictionary(dictionary)
+    stages.step("search index and classifier built")
     coder.save(args.out)
+    stages.step("saved")
+    stages.close()
     meta = dictionary.meta()
     summary.set(rows_in=meta["rows"]["in"], kept=meta["rows"]["kept"], rejected=meta["rows"]["rejected"],
                 titles=meta["titles"], codes=meta["codes"])
