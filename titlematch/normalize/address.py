@@ -37,6 +37,7 @@ import pandas as pd
 from unidecode import unidecode
 
 from titlematch.lexicon import load_lexicon
+from ._missing import is_missing
 
 __all__ = [
     "ParsedAddress",
@@ -97,11 +98,6 @@ def _directionals() -> dict[str, str]:
 
 
 # --------------------------------------------------------------------------- tokens
-def _is_missing(value: object) -> bool:
-    if value is None or value is pd.NA or value is pd.NaT:
-        return True
-    return isinstance(value, float) and math.isnan(value)
-
 
 def _part_tokens(part: str) -> list[str]:
     cleaned = re.sub(r"[^A-Z0-9/#-]+", " ", part).replace("#", " # ")
@@ -331,7 +327,7 @@ def parse_address(text: str | None) -> ParsedAddress:
     >>> parse_address("123 North Main Street, Suite 200").key
     '123 N MAIN ST STE 200'
     """
-    if _is_missing(text):
+    if is_missing(text):
         return ParsedAddress()
     if not isinstance(text, str):
         raise TypeError(f"parse_address: text must be a string, got {type(text).__name__}: {text!r}")
@@ -352,7 +348,7 @@ def _map_distinct(values: Iterable[object], argument: str, func, missing):
     cache: dict[str, object] = {}
     out = []
     for value in series.to_numpy(dtype=object):
-        if _is_missing(value):
+        if is_missing(value):
             out.append(missing)
             continue
         text = value if isinstance(value, str) else str(value)
@@ -439,7 +435,7 @@ def normalize_postcode(value: object) -> str:
     >>> normalize_postcode("k1a0b1"), normalize_postcode("123456789"), normalize_postcode(2138.0)
     ('K1A 0B1', '12345-6789', '02138')
     """
-    if _is_missing(value):
+    if is_missing(value):
         return ""
     return _clean_postcode(_postcode_text(value))
 
@@ -457,7 +453,7 @@ def normalize_postcodes(values: Iterable[object]) -> pd.Series:
     cache: dict[object, str] = {}
     out = []
     for value in series.to_numpy(dtype=object):
-        if _is_missing(value):
+        if is_missing(value):
             out.append("")
             continue
         marker = (type(value).__name__, value if isinstance(value, (str, int, float)) else repr(value))

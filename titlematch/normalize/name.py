@@ -32,7 +32,6 @@ Example
 """
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import dataclass
 from functools import lru_cache
@@ -42,6 +41,7 @@ import pandas as pd
 from unidecode import unidecode
 
 from titlematch.lexicon import load_lexicon
+from ._missing import is_missing
 
 __all__ = ["NormalizedName", "normalize_name", "normalize_names", "legal_form_table"]
 
@@ -288,11 +288,6 @@ def _expand(tokens: list[_Token]) -> list[str]:
 
 
 # --------------------------------------------------------------------------- public API
-def _is_missing(value: object) -> bool:
-    if value is None or value is pd.NA or value is pd.NaT:
-        return True
-    return isinstance(value, float) and math.isnan(value)
-
 
 def _normalize_text(text: str) -> NormalizedName:
     parts = _split_dba(_tokenize(_fold(text)))
@@ -340,7 +335,7 @@ def normalize_name(text: str | None) -> NormalizedName:
     >>> normalize_name("The Heron Group, Inc.").key
     'heron group'
     """
-    if _is_missing(text):
+    if is_missing(text):
         return NormalizedName(key="", empty=True)
     if not isinstance(text, str):
         raise TypeError(f"normalize_name: text must be a string, got {type(text).__name__}: {text!r}")
@@ -381,7 +376,7 @@ def normalize_names(values: Iterable[object]) -> pd.DataFrame:
     results: dict[object, NormalizedName] = {}
     rows = []
     for value in series.to_numpy(dtype=object):
-        if _is_missing(value):
+        if is_missing(value):
             rows.append(NormalizedName(key="", empty=True))
             continue
         text = value if isinstance(value, str) else str(value)

@@ -16,13 +16,13 @@ Example
 """
 from __future__ import annotations
 
-import math
 import re
 from typing import Callable, Iterable
 
 import jellyfish
 import pandas as pd
 from unidecode import unidecode
+from ._missing import is_missing
 
 __all__ = ["METHODS", "phonetic_key", "phonetic_keys"]
 
@@ -55,11 +55,6 @@ def _encode(text: str, encoder: Callable[[str], str], token: str) -> str:
     return " ".join(encoder(w) for w in words)
 
 
-def _is_missing(value: object) -> bool:
-    if value is None or value is pd.NA or value is pd.NaT:
-        return True
-    return isinstance(value, float) and math.isnan(value)
-
 
 def phonetic_key(text: str | None, method: str = "soundex", *, token: str = "first") -> str:
     """Phonetic code of ``text``.
@@ -84,7 +79,7 @@ def phonetic_key(text: str | None, method: str = "soundex", *, token: str = "fir
         Unknown ``method`` or ``token``.
     """
     encoder = _check(method, token)
-    if _is_missing(text):
+    if is_missing(text):
         return ""
     if not isinstance(text, str):
         raise TypeError(f"phonetic_key: text must be a string, got {type(text).__name__}: {text!r}")
@@ -107,7 +102,7 @@ def phonetic_keys(values: Iterable[object], method: str = "soundex", *, token: s
     cache: dict[str, str] = {}
     out = []
     for value in series.to_numpy(dtype=object):
-        if _is_missing(value):
+        if is_missing(value):
             out.append("")
             continue
         text = value if isinstance(value, str) else str(value)
