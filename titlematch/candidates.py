@@ -232,11 +232,23 @@ class TitleIndex:
             out.append(pd.DataFrame({"query": rows + start, "key": cols, "sim": vals.astype(np.float64)}))
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
 
-    def classify(self, queries, contexts=None) -> pd.DataFrame:
-        """The text classifier's top codes per query: query, code (position), prob (softmax over codes)."""
+    def classify(self, queries, contexts=None, pairs: tuple[np.ndarray, np.ndarray] | None = None):
+        """The text classifier's top codes per query: query, code (position), prob (softmax over codes).
+
+        With ``pairs`` (query positions, code positions), also return the probability of each pair,
+        read from the same pass over the queries (a second pass would redo the costly product).
+        """
         out = []
         coef_t = self.classifier_coef_.T.tocsr()
-        for start in range(0, len(queries), CHUNK):
+        if pairs is not None:
+            pair_query, pair_code = (np.asarray(p) for p in pairs)
+            class_pos = np.full(len(self.codes_), -1)
+            class_pos[self.classifier_classes_] = np.arange(len(self.classifier_classes_))
+            pair_col = class_pos[pair_code]
+            pair_prob = np.zeros(len(pair_query))
+            order = np.argsort(pair_query, kind="stable")
+            bounds = np.searchsorted(pair_query[order], np.arange(0, len(queries) + CHUNK, CHUNK))
+        for n, start in enumerate(range(0, len(queries), CHUNK)):
             part = None if contexts is None else contexts[start:start + CHUNK]
             prob = self.classifier_proba(queries[start:start + CHUNK], part, coef_t)
             k = min(self.classifier_top, prob.shape[1])
@@ -244,7 +256,13 @@ class TitleIndex:
             rows = np.repeat(np.arange(len(top)), k)
             out.append(pd.DataFrame({"query": rows + start, "code": self.classifier_classes_[top.ravel()],
                                      "prob": prob[rows, top.ravel()]}))
-        return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "code": [], "prob": []})
+            if pairs is not None:
+                here = order[bounds[n]:bounds[n + 1]]
+                known = here[pair_col[here] >= 0]
+                pair_prob[known] = prob[pair_query[known] - start, pair_col[known]]
+        top_codes = (pd.concat(out, ignore_index=True) if out
+                     else pd.DataFrame({"query": [], "code": [], "prob": []}))
+        return top_codes if pairs is None else (top_codes, pair_prob)
 
     def classifier_proba(self, queries, contexts=None, coef_t=None) -> np.ndarray:
         """Softmax over all codes (columns in ``classifier_classes_`` order) for each query."""

@@ -179,7 +179,12 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     reads = pd.DataFrame({"query": q_of_unit, "context": units["context"].fillna("").to_numpy()})
     distinct = reads.drop_duplicates().reset_index(drop=True)
     read_of_unit = pd.MultiIndex.from_frame(distinct).get_indexer(pd.MultiIndex.from_frame(reads))
-    clf = index.classify(qtext[distinct["query"].to_numpy()], distinct["context"].to_numpy())
+    # every read also needs the classifier's probability of each code its title's matches found
+    needed = (pd.DataFrame({"read": np.arange(len(distinct)), "query": distinct["query"].to_numpy()})
+              .merge(best[["query", "code"]], on="query"))
+    clf, needed_prob = index.classify(qtext[distinct["query"].to_numpy()], distinct["context"].to_numpy(),
+                                      pairs=(needed["read"].to_numpy(), needed["code"].to_numpy()))
+    pair_prob = pd.Series(needed_prob, index=pd.MultiIndex.from_arrays([needed["read"], needed["code"]]))
     clf["clf_rank"] = clf.groupby("query")["prob"].rank(ascending=False, method="first")
     clf = _repeat_for_units(clf.rename(columns={"query": "read", "prob": "clf_prob"})
                             .sort_values(["read", "code"]).reset_index(drop=True), read_of_unit, by="read")
@@ -188,19 +193,14 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     found = pd.MultiIndex.from_arrays([cands["unit"], cands["code"]])
     offered = pd.MultiIndex.from_arrays([clf["unit"], clf["code"]])
     from_clf = clf.set_index(offered)
-    cands["clf_prob"] = from_clf["clf_prob"].reindex(found).fillna(0.0).to_numpy()
+    read_found = pd.MultiIndex.from_arrays([read_of_unit[cands["unit"].to_numpy()], cands["code"].to_numpy()])
+    cands["clf_prob"] = pair_prob.reindex(read_found).fillna(0.0).to_numpy()
     cands["clf_rank"] = from_clf["clf_rank"].reindex(found).fillna(99.0).to_numpy()
     fill = {"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0, "sim_char": 0.0, "sim_word": 0.0,
             "strength": 0.0, "share": 0.0, "share_evidence": 0.0, "support": 0.0, "code_weight": 0.0,
             "key_weight": 0.0, "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
     extra = clf[~offered.isin(found)].assign(**{k: v for k, v in fill.items() if k not in clf.columns})
     cands = pd.concat([cands, extra[cands.columns].astype(cands.dtypes.to_dict())], ignore_index=True)
-    # the classifier's probability for codes found by other sources too
-    missing = cands["clf_rank"] >= 99
-    if missing.any():
-        rows = cands.loc[missing]
-        cands.loc[missing, "clf_prob"] = _classifier_prob(index, qtext, distinct, read_of_unit[rows["unit"].to_numpy()],
-                                                          rows["code"].to_numpy())
     cands["key"] = cands["key"].astype(np.int64)
     cands = cands.sort_values(["unit", "code"]).reset_index(drop=True)
     cands["row"] = np.arange(len(cands))
@@ -260,9 +260,9 @@ def _repeat_for_units(table: pd.DataFrame, owner_of_unit: np.ndarray, by: str = 
     """Rows of ``table`` (sorted by ``by``) repeated for every unit whose owner is their ``by`` value,
     with a ``unit`` column: a positional take, much cheaper than a merge on wide frames."""
     owners = table[by].to_numpy()
-    starts = np.searchsorted(owners, np.arange(len(owner_of_unit) and owner_of_unit.max() + 1), side="left")
-    ends = np.searchsorted(owners, np.arange(len(owner_of_unit) and owner_of_unit.max() + 1), side="right")
-    counts = (ends - starts)[owner_of_unit]
+    every = np.arange(owner_of_unit.max() + 1 if len(owner_of_unit) else 0)
+    starts = np.searchsorted(owners, every, side="left")
+    counts = (np.searchsorted(owners, every, side="right") - starts)[owner_of_unit]
     unit = np.repeat(np.arange(len(owner_of_unit)), counts)
     offset = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
     take = np.repeat(starts[owner_of_unit], counts) + offset
@@ -288,23 +288,3 @@ def _with_global_context(cands: pd.DataFrame) -> np.ndarray:
     after = pd.Series(np.where(group, weighted, 0.0)).groupby(units).transform("sum").to_numpy()
     scaled = np.divide(weighted * before, after, out=cands["share_evidence"].to_numpy().copy(), where=after > 0)
     return np.where(group & usable, np.minimum(scaled, 1.0), cands["share_evidence"].to_numpy())
-
-
-def _classifier_prob(index: TitleIndex, qtext: np.ndarray, distinct: pd.DataFrame, read: np.ndarray,
-                     code: np.ndarray) -> np.ndarray:
-    """The classifier's probability of given (read, code) pairs, chunk by chunk."""
-    class_pos = np.full(len(index.codes_), -1)
-    class_pos[index.classifier_classes_] = np.arange(len(index.classifier_classes_))
-    cols = class_pos[code]
-    out = np.zeros(len(read))
-    uniq = np.unique(read)
-    coef_t = index.classifier_coef_.T.tocsr()
-    for start in range(0, len(uniq), 2048):
-        part = uniq[start:start + 2048]
-        prob = index.classifier_proba(qtext[distinct["query"].to_numpy()[part]], distinct["context"].to_numpy()[part],
-                                      coef_t)
-        pos = np.searchsorted(part, read)
-        inside = (pos < len(part)) & (part[np.minimum(pos, len(part) - 1)] == read)
-        take = inside & (cols >= 0)
-        out[take] = prob[pos[take], cols[take]]
-    return out
