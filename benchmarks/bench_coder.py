@@ -1,6 +1,6 @@
 """Title coder vs the published TF-IDF + logistic regression method, same data, same run.
 
-Data: the invented Lakeshore scenario (titlematch.scenario), several past years with production
+Data: the invented Lakeshore scenario (titlematch.datasets.scenario), several past years with production
 label noise, and a held-out new year with expert codes. Prints accuracy, candidate recall,
 reduction ratio, times and ratios; then a scale run (build from --scale-records past records,
 code throughput, peak memory).
@@ -23,8 +23,8 @@ from sklearn.pipeline import make_pipeline, make_union
 sys.path.insert(0, str(Path(__file__).parent))
 from _common import PeakMemory, table  # noqa: E402
 
-from titlematch.coder import TitleCoder  # noqa: E402
-from titlematch.scenario import classification, make_title_scenario  # noqa: E402
+from titlematch.coding.coder import TitleCoder  # noqa: E402
+from titlematch.datasets.scenario import classification, make_title_scenario  # noqa: E402
 
 
 def peer_model():

@@ -18,10 +18,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 from _common import table  # noqa: E402
 from bench_coder import peer_model  # noqa: E402
 
-from titlematch.calibration import calibrate  # noqa: E402
-from titlematch.coder import TitleCoder  # noqa: E402
-from titlematch.metrics import expected_calibration_error  # noqa: E402
-from titlematch.scenario import classification, make_title_scenario  # noqa: E402
+from titlematch.confidence.calibration import calibrate  # noqa: E402
+from titlematch.coding.coder import TitleCoder  # noqa: E402
+from titlematch.measures.metrics import expected_calibration_error  # noqa: E402
+from titlematch.datasets.scenario import classification, make_title_scenario  # noqa: E402
 
 
 def automated_at(conf: np.ndarray, correct: np.ndarray, accuracy: float) -> float:

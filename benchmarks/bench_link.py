@@ -1,6 +1,6 @@
 """Benchmark: link new establishments to an invented register, against the recordlinkage toolkit.
 
-Both pipelines run on the same data from ``titlematch.scenario.make_register_scenario``.
+Both pipelines run on the same data from ``titlematch.datasets.scenario.make_register_scenario``.
 
 - titlematch: ``RegisterIndex`` (built once, timed apart) + ``EstablishmentLinker.link``
   (union blocking, IDF-weighted comparisons, Fellegi–Sunter with EM m/u).
@@ -27,10 +27,10 @@ import time
 import numpy as np
 import pandas as pd
 
-from titlematch.blocking import blocking_quality
-from titlematch.linking import EstablishmentLinker
-from titlematch.register import RegisterIndex
-from titlematch.scenario import make_register_scenario
+from titlematch.linking.blocking import blocking_quality
+from titlematch.linking.linker import EstablishmentLinker
+from titlematch.linking.register import RegisterIndex
+from titlematch.datasets.scenario import make_register_scenario
 
 
 def peak_rss_mb() -> float:

@@ -19,7 +19,7 @@ from collections import Counter
 import numpy as np
 import pandas as pd
 
-from titlematch.lexicon import load_lexicon
+from titlematch.io.lexicon import load_lexicon
 from titlematch.normalize.spelling import SpellingCorrector, correction_scores, make_misspellings
 from titlematch.normalize.title import _normalize_cached, normalize_titles
 from titlematch.normalize.title_lexicon import tokenize

@@ -57,7 +57,7 @@ def make_input(path: Path, rows: int, pool_size: int) -> None:
 
 # -- one case, in a child process ---------------------------------------------------------------------
 def run_case(case: str, source: Path, out: Path, chunk_rows: int, dictionary: str | None = None) -> dict:
-    from titlematch.runner import run_chunked
+    from titlematch.runtime.runner import run_chunked
 
     if dictionary:
         from titlematch.cli.code import CodeStep
@@ -158,8 +158,8 @@ def main(argv=None) -> int:
     with tempfile.TemporaryDirectory(prefix="bench_stream_") as tmp:
         dictionary = None
         if args.step == "code":
-            from titlematch.coder import TitleCoder
-            from titlematch.scenario import classification, make_title_scenario
+            from titlematch.coding.coder import TitleCoder
+            from titlematch.datasets.scenario import classification, make_title_scenario
             past = make_title_scenario(records_per_year=20_000, new_records=100, gold_records=50)["past"]
             dictionary = str(Path(tmp) / "dictionary")
             TitleCoder().fit(past, past["code"], classification=classification()).save(dictionary)

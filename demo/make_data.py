@@ -11,7 +11,7 @@ import argparse
 import sys
 import time
 
-from titlematch.scenario import write_scenario
+from titlematch.datasets.scenario import write_scenario
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -8,12 +8,12 @@ import pandas as pd
 import pytest
 
 from titlematch.cli import main
-from titlematch.coder import TitleCoder
-from titlematch.confidence import ConfidenceModel
-from titlematch.dictionary import TitleDictionary
-from titlematch.labels import history_labels
-from titlematch.metrics import brier_score, expected_calibration_error, log_loss
-from titlematch.scenario import classification, make_title_scenario
+from titlematch.coding.coder import TitleCoder
+from titlematch.confidence.model import ConfidenceModel
+from titlematch.coding.dictionary import TitleDictionary
+from titlematch.confidence.labels import history_labels
+from titlematch.measures.metrics import brier_score, expected_calibration_error, log_loss
+from titlematch.datasets.scenario import classification, make_title_scenario
 
 
 @pytest.fixture(scope="module")
@@ -77,7 +77,7 @@ def test_calibrate_cli_writes_model_report_and_plots(tmp_path, scenario):
 def test_gold_recalibration_is_calibrated_on_held_out_records(scenario):
     # ECE, Brier and log loss of the out-of-fold confidences; measures checked against scikit-learn
     # in tests/test_metrics.py. A loose bound: a 600-record gold sample is small.
-    from titlematch.calibration import calibrate
+    from titlematch.confidence.calibration import calibrate
     coder = TitleCoder().fit(scenario["past"], scenario["past"]["code"], classification=classification())
     result = calibrate(coder, scenario["gold"], n_boot=200)
     assert result.report["ece_15_bins"] < 0.06
@@ -89,7 +89,7 @@ def test_gold_recalibration_is_calibrated_on_held_out_records(scenario):
 
 
 def test_calibrate_without_gold_uses_history_and_says_so(scenario):
-    from titlematch.calibration import calibrate
+    from titlematch.confidence.calibration import calibrate
     coder = TitleCoder().fit(scenario["past"], scenario["past"]["code"])
     result = calibrate(coder, None, n_boot=100)
     assert "less reliable" in result.report["evaluated_on"]

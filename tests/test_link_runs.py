@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 
 from titlematch.cli import main
-from titlematch.scenario import make_register_scenario
+from titlematch.datasets.scenario import make_register_scenario
 
 
 @pytest.fixture(scope="module")

@@ -18,15 +18,15 @@ from hypothesis import strategies as st
 from sklearn.feature_extraction.text import TfidfVectorizer
 from sklearn.metrics.pairwise import cosine_similarity
 
-from titlematch.artefact import ArtefactError
-from titlematch.blocking import blocking_quality, join_codes, top_k
+from titlematch.io.artefact import ArtefactError
+from titlematch.linking.blocking import blocking_quality, join_codes, top_k
 from titlematch.cli import main
-from titlematch.comparison import agreement_levels, compare
+from titlematch.linking.comparison import agreement_levels, compare
 from titlematch.io import InputError, read_table
-from titlematch.lexicon import load_mapping
-from titlematch.linking import EstablishmentLinker, FellegiSunterModel, exclusive_confidence
-from titlematch.register import RegisterIndex
-from titlematch.scenario import make_register_scenario
+from titlematch.io.lexicon import load_mapping
+from titlematch.linking.linker import EstablishmentLinker, FellegiSunterModel, exclusive_confidence
+from titlematch.linking.register import RegisterIndex
+from titlematch.datasets.scenario import make_register_scenario
 
 
 def _pair_features(new: pd.DataFrame, register: pd.DataFrame, fields=None) -> pd.DataFrame:
@@ -180,7 +180,7 @@ def test_fellegi_sunter_weights_are_log2_ratios():
 
 
 # --------------------------------------------------------------------------- scenario-based behaviour
-# These run on the invented register scenario (titlematch.scenario): they check our output
+# These run on the invented register scenario (titlematch.datasets.scenario): they check our output
 # contract end to end; the outside facts they rest on are named where they apply.
 
 @pytest.fixture(scope="module")

@@ -11,7 +11,7 @@ from sklearn.calibration import calibration_curve
 from sklearn.metrics import accuracy_score, brier_score_loss, f1_score
 from sklearn.metrics import log_loss as sk_log_loss
 
-from titlematch import metrics
+from titlematch.measures import metrics
 
 
 def _calibrated_sample(n=2000, seed=3):
@@ -131,7 +131,7 @@ def test_code_levels_follow_the_soc_2018_hierarchy():
     # SOC 2018 structure (BLS SOC User Guide, from memory): 15-1252 Software Developers is in broad
     # occupation 15-1250, minor group 15-1200, major group 15-0000. The O*NET title comes from the shipped
     # O*NET-SOC 2019 table (O*NET Database, CC BY 4.0).
-    from titlematch.lexicon import load_lexicon
+    from titlematch.io.lexicon import load_lexicon
 
     onet = load_lexicon("onet_soc_2019_titles").set_index("onet_soc_code")["title"]
     assert onet["15-1252.00"] == "Software Developers"

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from titlematch.lexicon import load_lexicon
+from titlematch.io.lexicon import load_lexicon
 from titlematch.normalize.address import (
     ParsedAddress,
     normalize_addresses,

@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from titlematch.lexicon import load_lexicon
+from titlematch.io.lexicon import load_lexicon
 from titlematch.normalize.name import NormalizedName, legal_form_table, normalize_name, normalize_names
 
 

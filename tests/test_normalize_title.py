@@ -18,7 +18,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from unidecode import unidecode
 
-from titlematch.lexicon import load_lexicon
+from titlematch.io.lexicon import load_lexicon
 from titlematch.normalize.spelling import SpellingCorrector
 from titlematch.normalize.title import NormalizedTitle, normalize_title, normalize_titles
 from titlematch.normalize.title_lexicon import phrase_tokens, title_lexicon, tokenize

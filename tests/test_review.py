@@ -7,9 +7,9 @@ import openpyxl
 import pandas as pd
 
 from titlematch.cli import main
-from titlematch.coder import TitleCoder
-from titlematch.codes import onet_classification
-from titlematch.review import disagreements, escape_formula, referral_queue
+from titlematch.coding.coder import TitleCoder
+from titlematch.coding.codes import onet_classification
+from titlematch.review.queue import disagreements, escape_formula, referral_queue
 
 SOC = onet_classification("soc")  # O*NET-SOC 2019 table at SOC 2018 level (O*NET database, CC BY 4.0)
 

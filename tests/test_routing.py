@@ -6,8 +6,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.metrics import accuracy_score, f1_score
 
-from titlematch import metrics, routing
-from titlematch.routing import ACCEPT_NOTHING, automation_curve, choose_threshold, route
+from titlematch.confidence import routing
+from titlematch.measures import metrics
+from titlematch.confidence.routing import ACCEPT_NOTHING, automation_curve, choose_threshold, route
 
 
 def test_route_honours_the_threshold_exactly():

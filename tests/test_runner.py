@@ -18,7 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from titlematch.io import MAX_CELL_CHARS, InputError
-from titlematch.runner import (REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN, RunConflict, default_run_dir,
+from titlematch.runtime.runner import (REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN, RunConflict, default_run_dir,
                                options_digest, run_chunked)
 
 

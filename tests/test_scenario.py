@@ -15,12 +15,12 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from titlematch import _scenario_vocabulary as vocab
-from titlematch.codes import onet_classification
+from titlematch.datasets import _vocabulary as vocab
+from titlematch.coding.codes import onet_classification
 from titlematch.io import read_table
-from titlematch.lexicon import load_lexicon
-from titlematch._scenario_sampling import misspell
-from titlematch.scenario import classification, make_register_scenario, make_title_scenario, write_scenario
+from titlematch.io.lexicon import load_lexicon
+from titlematch.datasets._sampling import misspell
+from titlematch.datasets.scenario import classification, make_register_scenario, make_title_scenario, write_scenario
 
 TITLE_SIZES = dict(records_per_year=2_000, new_records=3_000, gold_records=400)
 REGISTER_SIZES = dict(register_rows=3_000, new_records=1_000)

@@ -16,8 +16,8 @@ from hypothesis import given, settings, strategies as st
 from rapidfuzz import process
 from rapidfuzz.distance import DamerauLevenshtein
 
-from titlematch.artefact import read_manifest
-from titlematch.lexicon import load_lexicon
+from titlematch.io.artefact import read_manifest
+from titlematch.io.lexicon import load_lexicon
 from titlematch.normalize.spelling import SpellingCorrector, correction_scores, make_misspellings
 from titlematch.normalize.title_lexicon import tokenize
 

@@ -10,7 +10,7 @@ import pkgutil
 import sys
 
 from .. import __version__
-from ..artefact import ArtefactError
+from ..io.artefact import ArtefactError
 from ..io import InputError
 
 

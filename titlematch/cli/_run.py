@@ -1,4 +1,4 @@
-"""Options shared by the commands that stream a table through :func:`titlematch.runner.run_chunked`."""
+"""Options shared by the commands that stream a table through :func:`titlematch.runtime.runner.run_chunked`."""
 from __future__ import annotations
 
 import argparse

@@ -22,10 +22,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from ..calibration import calibrate, save_calibration
-    from ..coder import TitleCoder
+    from ..confidence.calibration import calibrate, save_calibration
+    from ..coding.coder import TitleCoder
     from ..io import read_table
-    from ..progress import Summary
+    from ..runtime.progress import Summary
 
     summary = Summary("calibrate", args.quiet)
     coder = TitleCoder.load(args.dictionary)

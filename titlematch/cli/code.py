@@ -1,6 +1,6 @@
 """``titlematch code``: code new job titles against a dictionary (and a confidence model).
 
-The file is streamed in chunks through :func:`titlematch.runner.run_chunked`, so memory stays
+The file is streamed in chunks through :func:`titlematch.runtime.runner.run_chunked`, so memory stays
 flat, an interrupted run resumes, and ``--engine dask`` spreads chunks over a cluster with the
 dictionary shipped to each worker once. Coding a title depends only on its own text and
 context, so the output is the same however the file is cut into chunks.
@@ -39,11 +39,11 @@ class CodeStep:
 
     def __init__(self, dictionary: str, model: str | None, title_col: str, context_col: str,
                  threshold: float | None = None):
-        from ..coder import TitleCoder
+        from ..coding.coder import TitleCoder
         self.coder = TitleCoder.load(dictionary)
         self.model = None
         if model:
-            from ..confidence import ConfidenceModel
+            from ..confidence.model import ConfidenceModel
             self.model = ConfidenceModel.load(model)
             if threshold is not None:
                 self.model.threshold_ = threshold
@@ -64,8 +64,8 @@ def _manifest_digest(directory: str | None) -> str:
 
 def run(args) -> int:
     from ..io import read_table, write_table
-    from ..progress import Summary
-    from ..runner import run_chunked
+    from ..runtime.progress import Summary
+    from ..runtime.runner import run_chunked
 
     summary = Summary("code", args.quiet)
     step = CodeStep(args.dictionary, args.model, args.title_col, args.context_col, args.threshold)

@@ -25,7 +25,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def run(args) -> int:
     from . import main
-    from ..scenario import write_scenario
+    from ..datasets.scenario import write_scenario
 
     out = Path(args.out)
     data = out / "data"

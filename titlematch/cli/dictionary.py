@@ -27,9 +27,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from ..coder import TitleCoder
-    from ..dictionary import TitleDictionary, _read_records
-    from ..progress import Stages, Summary
+    from ..coding.coder import TitleCoder
+    from ..coding.dictionary import TitleDictionary, _read_records
+    from ..runtime.progress import Stages, Summary
 
     summary = Summary("dictionary", args.quiet)
     stages = Stages(3, "dictionary", args.quiet)

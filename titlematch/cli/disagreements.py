@@ -23,11 +23,11 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from ..coder import TitleCoder
-    from ..confidence import ConfidenceModel
+    from ..coding.coder import TitleCoder
+    from ..confidence.model import ConfidenceModel
     from ..io import read_table, write_table
-    from ..progress import Summary
-    from ..review import disagreements
+    from ..runtime.progress import Summary
+    from ..review.queue import disagreements
 
     summary = Summary("disagreements", args.quiet)
     coder = TitleCoder.load(args.dictionary)

@@ -42,9 +42,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from ..drift import DriftLimits, measure_drift, prepare, write_drift_report
+    from ..reporting.drift import DriftLimits, measure_drift, prepare, write_drift_report
     from ..io import InputError, Rejects, read_table
-    from ..progress import Summary
+    from ..runtime.progress import Summary
 
     summary = Summary("drift", args.quiet)
     if args.threshold is not None and not 0 <= args.threshold <= 1:
@@ -65,7 +65,7 @@ def run(args) -> int:
     old, new = frames
     vocabulary = known_keys = None
     if args.dictionary:
-        from ..dictionary import TitleDictionary
+        from ..coding.dictionary import TitleDictionary
         dictionary = TitleDictionary.load(args.dictionary)
         vocabulary = dictionary.vocabulary.index
         known_keys = dictionary.entries["key"]

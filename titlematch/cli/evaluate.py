@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..codes import SOC_LEVELS
+from ..coding.codes import SOC_LEVELS
 
 ORDER = 66
 
@@ -36,9 +36,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
-    from ..evaluate import evaluate, write_report
+    from ..reporting.evaluate import evaluate, write_report
     from ..io import InputError, Rejects, read_table
-    from ..progress import Summary
+    from ..runtime.progress import Summary
 
     summary = Summary("evaluate", args.quiet)
     for name, value, low in (("--bootstrap", args.bootstrap, 1), ("--bins", args.bins, 1), ("--top", args.top, 1)):

@@ -21,10 +21,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args) -> int:
     from pathlib import Path
 
-    from ..coder import TitleCoder
+    from ..coding.coder import TitleCoder
     from ..io import Rejects, read_table
-    from ..progress import Summary
-    from ..review import apply_feedback, read_decisions
+    from ..runtime.progress import Summary
+    from ..review.queue import apply_feedback, read_decisions
 
     summary = Summary("feedback", args.quiet)
     coder = TitleCoder.load(args.dictionary)

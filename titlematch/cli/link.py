@@ -10,10 +10,10 @@ import numpy as np
 import pandas as pd
 
 from ..io import ROW_COLUMN, InputError, Rejects, TableReader, read_table, rejects_path_for, write_table
-from ..linking import OUTPUT_COLUMNS, EstablishmentLinker
-from ..progress import Summary
-from ..register import RegisterIndex, resolve_fields
-from ..runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN, run_chunked
+from ..linking.linker import OUTPUT_COLUMNS, EstablishmentLinker
+from ..runtime.progress import Summary
+from ..linking.register import RegisterIndex, resolve_fields
+from ..runtime.runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN, run_chunked
 from ._run import add_run_arguments, run_arguments
 
 ORDER = 40

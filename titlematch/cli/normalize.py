@@ -108,8 +108,8 @@ class NormalizeStep:
 
 
 def run(args) -> int:
-    from ..progress import Summary
-    from ..runner import run_chunked
+    from ..runtime.progress import Summary
+    from ..runtime.runner import run_chunked
 
     summary = Summary("normalize", args.quiet)
     step = NormalizeStep(args.kind, args.column, str(args.file))

@@ -21,14 +21,14 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def run(args) -> int:
     from ..io import read_table, write_table
-    from ..progress import Summary
-    from ..review import escape_frame, referral_queue
+    from ..runtime.progress import Summary
+    from ..review.queue import escape_frame, referral_queue
 
     summary = Summary("queue", args.quiet)
     coded = read_table(args.coded, required=("title_normalized", "code"))
     titles = None
     if args.dictionary:
-        from ..dictionary import TitleDictionary
+        from ..coding.dictionary import TitleDictionary
         titles = TitleDictionary.load(args.dictionary).code_titles()
     queue = referral_queue(coded, titles, title_col=args.title_col, referred_only=not args.all)
     write_table(escape_frame(queue), args.out)

@@ -4,8 +4,8 @@ from __future__ import annotations
 import argparse
 
 from ..io import Rejects, read_table, rejects_path_for
-from ..progress import Summary
-from ..register import RegisterIndex
+from ..runtime.progress import Summary
+from ..linking.register import RegisterIndex
 from .link import _fields, add_common_field_options
 
 ORDER = 39

@@ -36,7 +36,7 @@ from typing import Iterable
 import pandas as pd
 from unidecode import unidecode
 
-from titlematch.lexicon import load_lexicon
+from titlematch.io.lexicon import load_lexicon
 from ._missing import is_missing
 
 __all__ = [

@@ -40,7 +40,7 @@ from typing import Iterable
 import pandas as pd
 from unidecode import unidecode
 
-from titlematch.lexicon import load_lexicon
+from titlematch.io.lexicon import load_lexicon
 from ._missing import is_missing
 
 __all__ = ["NormalizedName", "normalize_name", "normalize_names", "legal_form_table"]

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 from rapidfuzz.distance import DamerauLevenshtein
 
-from ..artefact import load_artefact, save_artefact
+from ..io.artefact import load_artefact, save_artefact
 from .title_lexicon import title_lexicon
 
 KIND = "spelling_corrector"

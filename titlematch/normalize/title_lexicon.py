@@ -13,7 +13,7 @@ from functools import lru_cache
 
 from unidecode import unidecode
 
-from ..lexicon import load_lexicon
+from ..io.lexicon import load_lexicon
 
 # Strength of the separator before a token; when tokens are dropped the stronger one survives.
 SPACE, HYPHEN, COMMA, SLASH = 0, 1, 2, 3

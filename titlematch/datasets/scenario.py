@@ -24,7 +24,7 @@ Surface noise in the title scenario (documented rates, applied independently):
 
 Example
 -------
->>> from titlematch.scenario import make_title_scenario
+>>> from titlematch.datasets.scenario import make_title_scenario
 >>> frames = make_title_scenario(records_per_year=1_000, new_records=200, gold_records=50)
 >>> sorted(frames)
 ['gold', 'new', 'new_kinds', 'new_truth', 'past']
@@ -36,11 +36,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ._scenario_register import register_scenario
-from ._scenario_sampling import identifiers
-from ._scenario_titles import miscode, title_model, title_records, year_weights
-from .codes import onet_classification
-from .io import write_table
+from ._register import register_scenario
+from ._sampling import identifiers
+from ._titles import miscode, title_model, title_records, year_weights
+from ..coding.codes import onet_classification
+from ..io import write_table
 
 
 def classification() -> pd.DataFrame:

@@ -24,8 +24,8 @@ import numpy as np
 import pandas as pd
 from sklearn.metrics import f1_score
 
-from .metrics import as_code_array, bootstrap_indices
-from .progress import progress
+from ..measures.metrics import as_code_array, bootstrap_indices
+from ..runtime.progress import progress
 
 ACCEPT_NOTHING = float(np.nextafter(1.0, 2.0))  # above every probability: nothing is accepted
 DEFAULT_MIN_ACCURACY = 0.97

@@ -1,4 +1,4 @@
-"""Vectorized sampling helpers for the invented demo scenario (``titlematch.scenario``)."""
+"""Vectorized sampling helpers for the invented demo scenario (``titlematch.datasets.scenario``)."""
 from __future__ import annotations
 
 import zlib

@@ -11,8 +11,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .coder import TitleCoder
-from .dictionary import UNDATED, TitleDictionary
+from ..coding.coder import TitleCoder
+from ..coding.dictionary import UNDATED, TitleDictionary
 
 
 def history_labels(dictionary: TitleDictionary, *, max_units: int = 20_000, max_rank: int = 5,

@@ -30,10 +30,10 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from sklearn.linear_model import LogisticRegression
 
-from .artefact import ArtefactError, load_artefact, save_artefact
+from ..io.artefact import ArtefactError, load_artefact, save_artefact
 from .blocking import KeyRule, NeighbourRule, TokenRule, candidate_pairs, default_rules
 from .comparison import agreement_levels, compare
-from .io import ROW_COLUMN, InputError, Rejects
+from ..io import ROW_COLUMN, InputError, Rejects
 from .register import Field, RegisterIndex, check_fields, resolve_fields
 
 log = logging.getLogger(__name__)

@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import __version__
-from .io import file_sha256
+from .. import __version__
+from . import file_sha256
 
 FORMAT_VERSION = 1
 MANIFEST = "manifest.json"

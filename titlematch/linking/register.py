@@ -26,11 +26,11 @@ import scipy.sparse as sp
 from sklearn.feature_extraction.text import TfidfVectorizer
 from unidecode import unidecode
 
-from .artefact import load_artefact, save_artefact
-from .io import ROW_COLUMN, InputError, require_columns
-from .normalize.address import normalize_addresses, normalize_postcodes
-from .normalize.name import normalize_names
-from .normalize.phonetic import phonetic_keys
+from ..io.artefact import load_artefact, save_artefact
+from ..io import ROW_COLUMN, InputError, require_columns
+from ..normalize.address import normalize_addresses, normalize_postcodes
+from ..normalize.name import normalize_names
+from ..normalize.phonetic import phonetic_keys
 
 log = logging.getLogger(__name__)
 

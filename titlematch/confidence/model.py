@@ -28,8 +28,8 @@ from sklearn.model_selection import GroupKFold
 from sklearn.preprocessing import StandardScaler
 from threadpoolctl import threadpool_limits
 
-from .artefact import load_artefact, save_artefact
-from .features import FEATURES
+from ..io.artefact import load_artefact, save_artefact
+from ..coding.features import FEATURES
 
 KIND = "confidence-model"
 ECM_RULES = {  # binarized features for the unsupervised start: name -> (feature, threshold)
@@ -186,7 +186,7 @@ class ConfidenceModel(BaseEstimator):
     Examples
     --------
     >>> import numpy as np, pandas as pd
-    >>> from titlematch.features import FEATURES
+    >>> from titlematch.coding.features import FEATURES
     >>> rng = np.random.default_rng(0)
     >>> X = pd.DataFrame(rng.random((400, len(FEATURES))), columns=FEATURES)
     >>> y = (X["share"] + 0.2 * rng.standard_normal(400) > 0.5).astype(int)

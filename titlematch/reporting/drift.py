@@ -32,9 +32,10 @@ import pandas as pd
 from scipy.spatial.distance import jensenshannon
 from scipy.stats import ks_2samp
 
-from . import htmlpage, plots
-from .io import ROW_COLUMN, InputError, Rejects, write_table
-from .metrics import major_group
+from . import htmlpage
+from ..measures import plots
+from ..io import ROW_COLUMN, InputError, Rejects, write_table
+from ..measures.metrics import major_group
 
 PSI_EPS = 1e-4
 MEASURE_COLUMNS = ["measure", "old", "new", "value", "limit", "flagged", "meaning"]
@@ -368,7 +369,7 @@ def prepare(frame: pd.DataFrame, name: str, rejects: Rejects | None = None) -> p
     if "title_normalized" in frame.columns:
         out = frame.assign(key=frame["title_normalized"].fillna("").astype(str).str.strip())
     elif "title" in frame.columns:
-        from .normalize.title import normalize_titles
+        from ..normalize.title import normalize_titles
         out = frame.assign(key=normalize_titles(frame["title"].fillna("").astype(str))["key"].to_numpy())
     else:
         raise InputError(f"{name}: needs a 'title_normalized' column (coded output) or a 'title' column")

@@ -14,8 +14,8 @@ import re
 import numpy as np
 import pandas as pd
 
-from .dictionary import TitleDictionary
-from .io import ROW_COLUMN, InputError, Rejects, require_columns
+from ..coding.dictionary import TitleDictionary
+from ..io import ROW_COLUMN, InputError, Rejects, require_columns
 
 QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context",
                  "code", "code_title", "confidence", "code_2", "code_2_title", "confidence_2",

@@ -15,14 +15,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .coder import TitleCoder
-from .confidence import ConfidenceModel, consistent
-from .features import FEATURES
-from .io import write_table
+from ..coding.coder import TitleCoder
+from .model import ConfidenceModel, consistent
+from ..coding.features import FEATURES
+from ..io import write_table
 from .labels import gold_labels, history_labels, top_candidates
-from .metrics import brier_score, expected_calibration_error, log_loss, per_major_group, reliability_table
-from .plots import plot_automation_curve, plot_reliability
-from .progress import Stages
+from ..measures.metrics import brier_score, expected_calibration_error, log_loss, per_major_group, reliability_table
+from ..measures.plots import plot_automation_curve, plot_reliability
+from ..runtime.progress import Stages
 from .routing import DEFAULT_MIN_ACCURACY, choose_threshold
 
 

@@ -44,8 +44,8 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from . import __version__
-from .io import (CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, REJECT_COLUMNS, ROW_COLUMN, InputError,
+from .. import __version__
+from ..io import (CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, REJECT_COLUMNS, ROW_COLUMN, InputError,
                  ReadPosition, Rejects, TableChunk, TableReader, atomic_path, file_sha256, rejects_path_for,
                  write_table)
 from .progress import progress

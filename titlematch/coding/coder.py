@@ -15,11 +15,11 @@ import numpy as np
 import pandas as pd
 from sklearn.base import BaseEstimator
 
-from .artefact import load_artefact
+from ..io.artefact import load_artefact
 from .candidates import TitleIndex
 from .dictionary import KIND, TitleDictionary
 from .features import FEATURES, ContextTables, candidate_features
-from .normalize.title import normalize_titles
+from ..normalize.title import normalize_titles
 
 OUTPUT_COLUMNS = ["title_normalized", "code", "code_title", "score", "code_2", "score_2", "code_3", "score_3"]
 
@@ -149,7 +149,7 @@ class TitleCoder(BaseEstimator):
         """Candidate codes with their features, one row per (record, candidate), best first.
 
         Columns: ``record`` (position in ``X``), ``code``, ``key`` (the dictionary title behind the
-        code) and the features listed in ``titlematch.features.FEATURES``.
+        code) and the features listed in ``titlematch.coding.features.FEATURES``.
         """
         frame = _as_frame(X)
         units, unit_of_row, _ = self._units(frame)

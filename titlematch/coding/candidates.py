@@ -16,7 +16,7 @@ from sklearn.feature_extraction.text import HashingVectorizer, TfidfTransformer,
 from sklearn.preprocessing import normalize as l2_normalize
 
 from .dictionary import TitleDictionary
-from .normalize.spelling import SpellingCorrector
+from ..normalize.spelling import SpellingCorrector
 
 CHUNK = 2048
 CLASSIFIER_FEATURES = 2 ** 20

@@ -11,7 +11,7 @@ Either way the step (with whatever heavy object it holds: a title dictionary, a 
 goes to each worker once (scattered with ``broadcast=True``, or as one task the partitions depend
 on), instead of once per chunk. Dask
 moves objects between processes with its own serialisation; titlematch itself loads artefacts
-only from data files (see :mod:`titlematch.artefact`).
+only from data files (see :mod:`titlematch.io.artefact`).
 
 Importing this module does not import Dask; that happens when an engine is started.
 """
@@ -24,7 +24,7 @@ from collections.abc import Callable, Iterable, Iterator
 
 import pandas as pd
 
-from .io import InputError
+from ..io import InputError
 
 INSTALL_HINT = "pip install titlematch[dask]"
 
@@ -136,7 +136,7 @@ class DaskChunkMap:
         """Yield ``(chunk, work(chunk, process))`` in the order of ``chunks``.
 
         ``work`` runs on a worker; by default it is ``process(chunk.frame)``. The runner passes
-        :func:`titlematch.runner.work_on_chunk`, so workers also check and encode each chunk.
+        :func:`titlematch.runtime.runner.work_on_chunk`, so workers also check and encode each chunk.
         """
         work = work or _apply_to_chunk
         pending: deque = deque()
@@ -162,7 +162,7 @@ def process_dask(ddf, process: Callable[[pd.DataFrame], pd.DataFrame], *, meta: 
     ----------
     ddf : ``dask.dataframe.DataFrame`` with the columns the step reads (text columns may be
         pyarrow strings; the step receives Python strings with missing values as "").
-    process : the step, as for :func:`titlematch.runner.run_chunked`; it becomes one task of the
+    process : the step, as for :func:`titlematch.runtime.runner.run_chunked`; it becomes one task of the
         graph that every partition depends on, so each worker receives it once.
     meta : an empty frame with the output columns and dtypes; by default the step's output for
         an empty frame.

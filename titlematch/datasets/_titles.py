@@ -1,5 +1,5 @@
 """Job-title records of the invented demo scenario: vocabulary compiled to arrays, surface noise and
-production label noise (see ``titlematch.scenario`` for the documented rates)."""
+production label noise (see ``titlematch.datasets.scenario`` for the documented rates)."""
 from __future__ import annotations
 
 import re
@@ -8,8 +8,8 @@ from functools import lru_cache
 
 import numpy as np
 
-from . import _scenario_vocabulary as vocab
-from ._scenario_sampling import (GroupSampler, StringPool, draw_weighted, misspell, rank_weights, split_alternatives,
+from . import _vocabulary as vocab
+from ._sampling import (GroupSampler, StringPool, draw_weighted, misspell, rank_weights, split_alternatives,
                                  stable_int)
 
 # Kinds of title variant.

@@ -5,7 +5,7 @@ import re
 
 import pandas as pd
 
-from .lexicon import load_lexicon, load_mapping
+from ..io.lexicon import load_lexicon, load_mapping
 
 SOC_PATTERN = r"^\d{2}-\d{4}(\.\d{2})?$"
 SOC_LEVELS = ("as_given", "detailed", "broad", "minor", "major")  # levels of the SOC hierarchy to compare at

@@ -14,7 +14,7 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from .io import atomic_path
+from ..io import atomic_path
 from .metrics import reliability_table
 
 DPI = 100

@@ -22,9 +22,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import htmlpage, metrics, plots
-from .io import ROW_COLUMN, InputError, Rejects, require_columns, write_table
-from .routing import ThresholdChoice, choose_threshold
+from . import htmlpage
+from ..measures import metrics
+from ..measures import plots
+from ..io import ROW_COLUMN, InputError, Rejects, require_columns, write_table
+from ..confidence.routing import ThresholdChoice, choose_threshold
 
 RECORD_ID = "record_id"
 DECISIONS = ("accept", "refer")
@@ -287,7 +289,7 @@ def _titled(confusion: pd.DataFrame, records: pd.DataFrame) -> pd.DataFrame:
     """Add code titles from the coded file's ``code_title``, else from the shipped O*NET titles."""
     titles: dict[str, str] = {}
     try:
-        from .lexicon import load_lexicon
+        from ..io.lexicon import load_lexicon
         onet = load_lexicon("onet_soc_2019_titles")
         for code, title in zip(onet["onet_soc_code"].astype(str), onet["title"].astype(str)):
             titles[code] = title

@@ -1,4 +1,4 @@
-"""Literal tables for the invented Lakeshore Region demo scenario (see ``titlematch.scenario``).
+"""Literal tables for the invented Lakeshore Region demo scenario (see ``titlematch.datasets.scenario``).
 
 Everything here is invented for the demo: the lay job titles are written the way survey respondents
 write them (common practice in occupation coding), attached to real SOC 2018 detailed codes; employer

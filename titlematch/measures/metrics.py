@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from sklearn import metrics as skm
 
-from .codes import SOC_LEVELS, to_soc_2018
+from ..coding.codes import SOC_LEVELS, to_soc_2018
 
 _SOC_PATTERN = re.compile(r"^\s*(\d{2})-(\d{4})(?:\.(\d{2}))?\s*$")
 _BOOTSTRAP_CHUNK = 2_000_000  # resampled values held in memory at once (about 16 MB of int64)

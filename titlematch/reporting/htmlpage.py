@@ -16,8 +16,8 @@ from typing import Iterable, Mapping
 
 import pandas as pd
 
-from . import __version__
-from .io import atomic_path
+from .. import __version__
+from ..io import atomic_path
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 

@@ -1,5 +1,5 @@
 """Business register and survey establishment records of the invented demo scenario
-(see ``titlematch.scenario``)."""
+(see ``titlematch.datasets.scenario``)."""
 from __future__ import annotations
 
 from functools import lru_cache
@@ -7,10 +7,10 @@ from functools import lru_cache
 import numpy as np
 import pandas as pd
 
-from . import _scenario_vocabulary as vocab
-from ._scenario_sampling import (GroupSampler, choose, draw_weighted, identifiers, misspell, objects,
+from . import _vocabulary as vocab
+from ._sampling import (GroupSampler, choose, draw_weighted, identifiers, misspell, objects,
                                  rank_weights, split_alternatives)
-from .lexicon import load_lexicon
+from ..io.lexicon import load_lexicon
 
 CHAIN_HARD_NEGATIVE_SHARE = 0.3   # of the new employers, share that are new branches of register chains
 _SIZE_BASE = np.array([0.34, 0.2, 0.15, 0.13, 0.08, 0.05, 0.03, 0.015, 0.005])
