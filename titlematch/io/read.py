@@ -1,0 +1,334 @@
+"""Reading and writing tables: CSV, Parquet and spreadsheets in; rejects kept; outputs atomic.
+
+Every reader returns strings (missing values as ``""``) plus the source row number in
+``ROW_COLUMN``, so a later stage can name the file and row of anything it refuses.
+Row numbers are what a person sees: the CSV line where the record starts (header = 1),
+or the 1-based row of a Parquet or spreadsheet table below its header.
+
+Hostile CSV input is read, not trusted. The encoding is chosen over the whole file and logged
+(UTF-8 with or without BOM, else cp1252, else latin-1; or as given). A record is set aside in
+the rejects with its row number and reason when it has the wrong number of fields, bad quoting,
+a NUL byte, an undecodable or over-long physical line (``MAX_LINE_BYTES``) or a cell over the
+csv module's field limit (131,072 characters); a cell over ``MAX_CELL_CHARS`` is truncated and
+flagged there while its row is kept. A record that cannot be read sets aside its first line
+only, and reading restarts on the next line, so one stray quote cannot swallow the rows after
+it. Blank lines are not records. Nothing else is dropped.
+"""
+from __future__ import annotations
+
+import csv
+import logging
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterator, Sequence
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from .csvparse import _BadLine, _Lines, _records, _sniff_delimiter
+from .encoding import _scan
+from .errors import InputError
+from .files import EXCEL_SUFFIXES, PARQUET_SUFFIXES
+from .rejects import ROW_COLUMN, Rejects, require_columns
+
+log = logging.getLogger("titlematch.io")
+
+MAX_CELL_CHARS = 10_000  # longer cells are truncated and the row flagged in rejects
+
+
+@dataclass(frozen=True)
+class ReadPosition:
+    """Where a table reader stands between two chunks, so a later reader can continue from there.
+
+    ``records`` counts the records read (kept or set aside); for CSV, ``line`` is the number of
+    physical lines before the next record and ``offset`` the byte offset of that line.
+    """
+
+    records: int = 0
+    line: int = 0
+    offset: int = 0
+
+    def to_dict(self) -> dict:
+        return {"records": self.records, "line": self.line, "offset": self.offset}
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "ReadPosition":
+        return cls(int(data["records"]), int(data.get("line", 0)), int(data.get("offset", 0)))
+
+@dataclass
+class TableChunk:
+    """One chunk of a table: kept rows (strings + ``_row``), what was set aside or flagged, and positions."""
+
+    index: int
+    frame: pd.DataFrame
+    rejects: Rejects
+    records: int
+    start: ReadPosition
+    end: ReadPosition
+
+def _clean_header(header: list, path: Path, strip: bool = True) -> list[str]:
+    names = [str(h).strip().replace("\x00", "") if strip else str(h) for h in header]
+    if ROW_COLUMN in names:
+        raise InputError(f"{path}: column name {ROW_COLUMN!r} is reserved for row numbers; rename that column")
+    seen: dict[str, int] = {}
+    unique = []
+    for name in names:  # duplicate names get .1, .2 ... as pandas does, so no column is lost
+        if name in seen:
+            seen[name] += 1
+            new = f"{name}.{seen[name]}"
+            while new in names or new in seen:
+                seen[name] += 1
+                new = f"{name}.{seen[name]}"
+            log.warning("%s: duplicate column name %r renamed %r", path, name, new)
+            seen[new] = 0
+            unique.append(new)
+        else:
+            seen[name] = 0
+            unique.append(name)
+    return unique
+
+def _check_cells(fields: list[str], header: list[str], row: int, path: Path, rejects: Rejects,
+                 max_cell: int) -> bool:
+    """Reject a record with a NUL byte (False); truncate and flag over-long cells (True, kept)."""
+    for i, field in enumerate(fields):
+        if "\x00" in field:
+            rejects.add(path, row, header[i], "cell contains a NUL byte", field.replace("\x00", "\\0"))
+            return False
+    for i, field in enumerate(fields):
+        if len(field) > max_cell:
+            rejects.add(path, row, header[i], f"cell longer than {max_cell} characters, truncated", field[:50])
+            fields[i] = field[:max_cell]
+    return True
+
+def _check_frame(frame: pd.DataFrame, path: Path, rejects: Rejects, max_cell: int) -> pd.DataFrame:
+    """The same cell checks as :func:`_check_cells`, column-wise, for Parquet and spreadsheet chunks."""
+    keep = pd.Series(True, index=frame.index)
+    for column in frame.columns.drop(ROW_COLUMN):
+        values = frame[column]
+        nul = values.str.contains("\x00", regex=False) & keep
+        for row, value in zip(frame.loc[nul, ROW_COLUMN], values[nul]):
+            rejects.add(path, int(row), column, "cell contains a NUL byte", value.replace("\x00", "\\0"))
+        keep &= ~nul
+    for column in frame.columns.drop(ROW_COLUMN):
+        values = frame[column]
+        long = (values.str.len() > max_cell) & keep
+        if long.any():
+            for row, value in zip(frame.loc[long, ROW_COLUMN], values[long]):
+                rejects.add(path, int(row), column, f"cell longer than {max_cell} characters, truncated", value[:50])
+            frame.loc[long, column] = values[long].str.slice(0, max_cell)
+    return frame[keep].reset_index(drop=True)
+
+def _as_strings(frame: pd.DataFrame) -> pd.DataFrame:
+    frame = frame.astype(object)
+    return frame.where(frame.notna(), "").astype(str)
+
+class TableReader:
+    """Read a CSV, Parquet or .xlsx table in chunks of rows, with flat memory for CSV and Parquet.
+
+    Each chunk holds up to ``chunk_rows`` records (kept or set aside) as strings plus ``_row``,
+    the source row number, exactly as :func:`read_table` would number them. CSV is decoded line
+    by line after one streaming pass that chooses the encoding (:func:`detect_file_encoding`,
+    logged); Parquet is read by row groups; .xlsx is read whole and then cut into chunks.
+
+    Parameters
+    ----------
+    path : the table; the format is chosen by suffix (.parquet/.pq, .xlsx, else CSV).
+    chunk_rows : records per chunk.
+    required : columns that must exist (InputError naming the file and its columns otherwise).
+    encoding : CSV encoding; None to detect.
+    max_cell : longer cells are truncated and flagged in the chunk's rejects (the row is kept).
+
+    Example::
+
+        reader = TableReader("titles.csv", chunk_rows=10_000, required=["title"])
+        for chunk in reader.chunks():
+            print(chunk.index, len(chunk.frame), len(chunk.rejects))
+    """
+
+    def __init__(self, path: str | os.PathLike, *, chunk_rows: int = 50_000, required: Sequence[str] = (),
+                 encoding: str | None = None, max_cell: int = MAX_CELL_CHARS) -> None:
+        self.path = Path(path)
+        if not isinstance(chunk_rows, int) or chunk_rows < 1:
+            raise ValueError(f"chunk_rows must be a positive integer, got {chunk_rows!r}")
+        if not self.path.exists():
+            raise InputError(f"{self.path}: no such file")
+        if not self.path.is_file():
+            raise InputError(f"{self.path}: not a file")
+        self.chunk_rows = chunk_rows
+        self.max_cell = max_cell
+        self.encoding: str | None = None
+        suffix = self.path.suffix.lower()
+        self.format = "parquet" if suffix in PARQUET_SUFFIXES else "xlsx" if suffix in EXCEL_SUFFIXES else "csv"
+        getattr(self, f"_open_{self.format}")(encoding)
+        probe = pd.DataFrame(columns=self.columns)
+        require_columns(probe, required, self.path)
+
+    # -- opening: columns, row count (exact, or estimated from newlines for CSV) ------------------
+    def _open_csv(self, encoding: str | None) -> None:
+        with self._open_binary() as handle:
+            self.encoding, newlines, complete = _scan(handle, self.path, encoding)
+            log.info("%s: decoded as %s (%s)", self.path, self.encoding, "as requested" if encoding else "detected")
+            lines = _Lines(handle, self.encoding, block=1 << 14)  # the header only
+            try:
+                first = next(lines)
+            except StopIteration:
+                raise InputError(f"{self.path}: the file is empty (no header row)") from None
+            except _BadLine as exc:
+                raise InputError(f"{self.path}: cannot read the header row: {exc}") from None
+            self.delimiter = _sniff_delimiter(self.path, first)
+            lines.give_back(list(lines.taken))
+            try:
+                header = next(csv.reader(lines, delimiter=self.delimiter, strict=True))
+            except (csv.Error, _BadLine) as exc:
+                raise InputError(f"{self.path}: cannot read the header row: {exc}") from None
+            self._body = ReadPosition(0, *lines.position())
+        self.columns = _clean_header(header, self.path)
+        # an estimate for progress bars: blank lines and quoted newlines make it high
+        self.total_rows = max(newlines - self._body.line + (not complete), 0)
+
+    def _open_binary(self):
+        return open(self.path, "rb")
+
+    def _open_parquet(self, encoding: str | None) -> None:
+        try:
+            self._parquet = pq.ParquetFile(self.path)
+        except Exception as exc:  # pyarrow raises several types for a damaged file
+            raise InputError(f"{self.path}: not a readable Parquet file: {exc}") from exc
+        schema = self._parquet.schema_arrow
+        index = (schema.pandas_metadata or {}).get("index_columns", [])
+        self._fields = [n for n in schema.names if n not in {i for i in index if isinstance(i, str)}]
+        self.columns = _clean_header(self._fields, self.path, strip=False)
+        self.total_rows = self._parquet.metadata.num_rows
+
+    def _open_xlsx(self, encoding: str | None) -> None:
+        frame = pd.read_excel(self.path, dtype=str, keep_default_na=False)
+        self.columns = _clean_header(list(frame.columns), self.path, strip=False)
+        frame.columns = self.columns
+        self._sheet = frame.fillna("").astype(str)
+        self.total_rows = len(frame)
+
+    # -- reading --------------------------------------------------------------------------------
+    def chunks(self, start: ReadPosition | None = None, first_index: int = 0) -> Iterator[TableChunk]:
+        """Yield :class:`TableChunk` objects, from the beginning or from ``start`` (an earlier chunk's ``end``)."""
+        start = start or ReadPosition()
+        yield from getattr(self, f"_chunks_{self.format}")(start, first_index)
+
+    def _chunks_csv(self, start: ReadPosition, index: int) -> Iterator[TableChunk]:
+        if start.records == 0:
+            start = self._body
+        width = len(self.columns)
+        with self._open_binary() as handle:
+            lines = _Lines(handle, self.encoding, line=start.line, offset=start.offset)
+            records: list[list[str]] = []
+            rows: list[int] = []
+            rejects = Rejects()
+            count = 0
+            max_cell = self.max_cell
+            for row, fields, reason, text in _records(lines, self.delimiter, width):
+                count += 1
+                if fields is None:
+                    rejects.add(self.path, row, "", reason, text.replace("\x00", "\\0"))
+                elif (text is not None and len(text) <= max_cell and "\x00" not in text) or \
+                        _check_cells(fields, self.columns, row, self.path, rejects, max_cell):
+                    records.append(fields)
+                    rows.append(row)
+                if count == self.chunk_rows:
+                    end = ReadPosition(start.records + count, *lines.position())
+                    yield self._csv_chunk(index, records, rows, rejects, count, start, end)
+                    index, start = index + 1, end
+                    records, rows, rejects, count = [], [], Rejects(), 0
+            if count:
+                end = ReadPosition(start.records + count, *lines.position())
+                yield self._csv_chunk(index, records, rows, rejects, count, start, end)
+
+    def _csv_chunk(self, index, records, rows, rejects, count, start, end) -> TableChunk:
+        frame = pd.DataFrame(records, columns=self.columns, dtype=object) if records \
+            else pd.DataFrame({c: pd.Series([], dtype=object) for c in self.columns})
+        frame[ROW_COLUMN] = pd.Series(rows, dtype="int64")
+        return TableChunk(index, frame, rejects, count, start, end)
+
+    def _chunks_parquet(self, start: ReadPosition, index: int) -> Iterator[TableChunk]:
+        groups, first_row, skip = [], 0, start.records
+        for g in range(self._parquet.num_row_groups):
+            n = self._parquet.metadata.row_group(g).num_rows
+            if first_row + n <= skip and not groups:
+                first_row += n
+                continue
+            groups.append(g)
+        drop = skip - first_row
+        pending: pa.Table | None = None
+        done = start.records
+        batches = self._parquet.iter_batches(batch_size=min(self.chunk_rows, 1 << 16), row_groups=groups,
+                                             columns=self._fields) if groups else iter(())
+        for batch in batches:
+            table = pa.Table.from_batches([batch])
+            if drop:
+                cut = min(drop, table.num_rows)
+                table, drop = table.slice(cut), drop - cut
+            pending = table if pending is None else pa.concat_tables([pending, table])
+            while pending.num_rows >= self.chunk_rows:
+                yield self._table_chunk(index, pending.slice(0, self.chunk_rows), done)
+                pending = pending.slice(self.chunk_rows)
+                index, done = index + 1, done + self.chunk_rows
+        if pending is not None and pending.num_rows:
+            yield self._table_chunk(index, pending, done)
+
+    def _table_chunk(self, index: int, table, done: int) -> TableChunk:
+        frame = table if isinstance(table, pd.DataFrame) else table.to_pandas()
+        frame = _as_strings(frame)
+        frame.columns = self.columns
+        first = done + (2 if self.format == "xlsx" else 1)  # spreadsheet rows count the header row
+        frame[ROW_COLUMN] = pd.RangeIndex(first, first + len(frame)).to_numpy(dtype="int64")
+        rejects = Rejects()
+        frame = _check_frame(frame.reset_index(drop=True), self.path, rejects, self.max_cell)
+        end = ReadPosition(done + len(table))
+        return TableChunk(index, frame, rejects, len(table), ReadPosition(done), end)
+
+    def _chunks_xlsx(self, start: ReadPosition, index: int) -> Iterator[TableChunk]:
+        for done in range(start.records, len(self._sheet), self.chunk_rows):
+            yield self._table_chunk(index, self._sheet.iloc[done:done + self.chunk_rows], done)
+            index += 1
+
+def iter_table_chunks(path: str | os.PathLike, chunk_rows: int = 50_000, *, required: Sequence[str] = (),
+                      encoding: str | None = None, rejects: Rejects | None = None,
+                      max_cell: int = MAX_CELL_CHARS) -> Iterator[pd.DataFrame]:
+    """Stream a table as DataFrames of up to ``chunk_rows`` records, numbered as :func:`read_table` numbers them.
+
+    Rows set aside or flagged go to ``rejects``. Chunks whose records were all set aside are not
+    yielded (their rejects still are collected).
+
+    Example::
+
+        rejects = Rejects()
+        for frame in iter_table_chunks("titles.csv", 10_000, rejects=rejects):
+            print(frame["_row"].iloc[0], len(frame))
+    """
+    reader = TableReader(path, chunk_rows=chunk_rows, required=required, encoding=encoding, max_cell=max_cell)
+    for chunk in reader.chunks():
+        if rejects is not None:
+            rejects.extend(chunk.rejects)
+        if len(chunk.frame):
+            yield chunk.frame
+
+def read_table(path: str | os.PathLike, *, required: Sequence[str] = (), encoding: str | None = None,
+               rejects: Rejects | None = None, max_cell: int = MAX_CELL_CHARS) -> pd.DataFrame:
+    """Read a CSV, Parquet or .xlsx table as strings with a ``_row`` column of source row numbers.
+
+    Unreadable rows go to ``rejects`` (a fresh collector if none is given) and are not returned;
+    over-long cells are truncated to ``max_cell`` characters and flagged there (the row is kept).
+    Raises ``InputError`` naming the file when it is missing, empty or lacks a ``required`` column.
+    For files too big for memory, use :class:`TableReader` or :func:`iter_table_chunks`.
+    """
+    rejects = rejects if rejects is not None else Rejects()
+    reader = TableReader(path, chunk_rows=1 << 62, required=required, encoding=encoding, max_cell=max_cell)
+    frames = []
+    for chunk in reader.chunks():
+        rejects.extend(chunk.rejects)
+        frames.append(chunk.frame)
+    if not frames:
+        frame = pd.DataFrame({c: pd.Series([], dtype=object) for c in reader.columns})
+        frame[ROW_COLUMN] = pd.Series([], dtype="int64")
+        return frame
+    return pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0].reset_index(drop=True)
