@@ -1,6 +1,11 @@
 """The ``titlematch`` command. Each sub-command is a module in this package exposing
 ``ORDER`` (its place in ``--help``), ``add_parser(subparsers)`` and ``run(args) -> int``;
-a new command is a new file, found here without editing this one."""
+a new command is a new file, found here without editing this one.
+
+Start-up rule: building the parser imports every command module, so a command module imports
+only the standard library at its top and the library (pandas, scikit-learn, titlematch's
+stages) inside ``run``. ``titlematch --help`` then answers without loading any of it
+(``tests/test_cli_start.py`` checks; ``benchmarks/bench_start.py`` measures)."""
 from __future__ import annotations
 
 import argparse
@@ -10,8 +15,6 @@ import pkgutil
 import sys
 
 from .. import __version__
-from ..io.artefact import ArtefactError
-from ..io import InputError
 
 
 def _commands():
@@ -47,6 +50,9 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="titlematch: %(message)s")
+    # Imported only now: --help and --version have exited already, and every command loads these anyway.
+    from ..io import InputError
+    from ..io.artefact import ArtefactError
     try:
         return int(args._run(args) or 0)
     except (InputError, ArtefactError) as exc:

@@ -11,8 +11,6 @@ import argparse
 import json
 from pathlib import Path
 
-import pandas as pd
-
 from ._run import add_run_arguments, run_arguments
 
 ORDER = 30
@@ -49,7 +47,7 @@ class CodeStep:
                 self.model.threshold_ = threshold
         self.title_col, self.context_col = title_col, context_col
 
-    def __call__(self, frame: pd.DataFrame) -> pd.DataFrame:
+    def __call__(self, frame):
         work = frame.rename(columns={self.title_col: "title", self.context_col: "context"})
         coded = self.coder.code(work, confidence=self.model)
         return coded.rename(columns={"title": self.title_col, "context": self.context_col})
@@ -63,6 +61,8 @@ def _manifest_digest(directory: str | None) -> str:
 
 
 def run(args) -> int:
+    import pandas as pd
+
     from ..io import read_table, write_table
     from ..runtime.progress import Summary
     from ..runtime.runner import run_chunked

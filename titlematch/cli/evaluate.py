@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..coding.codes import SOC_LEVELS
+from ..coding.levels import SOC_LEVELS
 
 ORDER = 66
 

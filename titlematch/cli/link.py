@@ -6,15 +6,10 @@ import logging
 from dataclasses import replace
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
-
-from ..io import ROW_COLUMN, InputError, Rejects, TableReader, read_table, rejects_path_for, write_table
-from ..linking.linker import OUTPUT_COLUMNS, EstablishmentLinker
-from ..runtime.progress import Summary
-from ..linking.register import RegisterIndex, resolve_fields
-from ..runtime.runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN, run_chunked
 from ._run import add_run_arguments, run_arguments
+
+# The library is imported inside the functions below: building the command line's parser imports
+# this module, and must not load pandas or scikit-learn (see titlematch.cli).
 
 ORDER = 40
 log = logging.getLogger(__name__)
@@ -22,6 +17,8 @@ log = logging.getLogger(__name__)
 
 def parse_fields(text: str | None, option: str = "--fields") -> dict[str, str]:
     """``"name=employer_name,address=street"`` -> ``{"name": "employer_name", "address": "street"}``."""
+    from ..io import InputError
+
     if not text:
         return {}
     mapping = {}
@@ -71,13 +68,18 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def _fields(args):
+    from ..linking.register import resolve_fields
+
     new = parse_fields(args.fields)
     register = parse_fields(getattr(args, "register_fields", None), "--register-fields")
     fields = resolve_fields(new or None)
     return [replace(f, register_column=register.get(f.name, f.column)) for f in fields]
 
 
-def load_register(args, fields, rejects: Rejects) -> RegisterIndex:
+def load_register(args, fields, rejects):
+    from ..io import read_table
+    from ..linking.register import RegisterIndex
+
     path = Path(args.register)
     if path.is_dir():
         index = RegisterIndex.load(path)
@@ -92,10 +94,17 @@ class LinkStep:
     """The per-chunk step of ``titlematch link``: a fitted linker applied to one chunk. Records the
     linker sets aside (an empty name) come back in place, marked for the runner's rejects file."""
 
-    def __init__(self, linker: EstablishmentLinker, source: str):
+    def __init__(self, linker, source: str):
         self.linker, self.source = linker, source
 
-    def __call__(self, chunk: pd.DataFrame) -> pd.DataFrame:
+    def __call__(self, chunk):
+        import numpy as np
+        import pandas as pd
+
+        from ..io import ROW_COLUMN, Rejects
+        from ..linking.linker import OUTPUT_COLUMNS
+        from ..runtime.runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN
+
         rejects = Rejects()
         result = self.linker.link(chunk, rejects=rejects, source=self.source)
         added = [c for c in result.columns if c not in chunk.columns or c in OUTPUT_COLUMNS]
@@ -116,6 +125,13 @@ class LinkStep:
 
 
 def run(args) -> int:
+    import pandas as pd
+
+    from ..io import InputError, Rejects, TableReader, read_table, rejects_path_for, write_table
+    from ..linking.linker import EstablishmentLinker
+    from ..runtime.progress import Summary
+    from ..runtime.runner import run_chunked
+
     summary = Summary("link", args.quiet)
     fields = _fields(args)
     linker = EstablishmentLinker(fields, id_column=args.id_col, record_id=args.record_id,

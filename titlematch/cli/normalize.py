@@ -4,9 +4,6 @@ from __future__ import annotations
 import argparse
 from dataclasses import dataclass
 
-import numpy as np
-import pandas as pd
-
 from ._run import add_run_arguments, run_arguments
 
 ORDER = 10
@@ -41,13 +38,17 @@ def output_columns(kind: str, column: str) -> list[str]:
     return [f"{column}_normalized"] + [f"{column}_{field}" for field in fields]
 
 
-def qualifiers_text(frame: pd.DataFrame) -> pd.Series:
+def qualifiers_text(frame):
     """Compact "seniority=senior; level=2; shift=night" text of the non-empty qualifier columns.
 
+    >>> import pandas as pd
     >>> frame = pd.DataFrame({"seniority": ["senior", ""], "level": ["2", ""], "shift": ["night", ""]})
     >>> qualifiers_text(frame).tolist()
     ['seniority=senior; level=2; shift=night', '']
     """
+    import numpy as np
+    import pandas as pd
+
     names = [name for name in TITLE_QUALIFIERS if name in frame.columns]
     if not names or frame.empty:
         return pd.Series("", index=frame.index, dtype=object)
@@ -65,6 +66,7 @@ class NormalizeStep:
 
     A module-level, frozen object so the Dask engine can send it to workers.
 
+    >>> import pandas as pd
     >>> step = NormalizeStep("address", "street")
     >>> step(pd.DataFrame({"street": ["12 Elm Avenue Apt 3"]}))["street_normalized"].tolist()
     ['12 ELM AVE APT 3']
@@ -74,7 +76,9 @@ class NormalizeStep:
     column: str
     source: str = "<input>"
 
-    def __call__(self, frame: pd.DataFrame) -> pd.DataFrame:
+    def __call__(self, frame):
+        import pandas as pd
+
         added = output_columns(self.kind, self.column)
         clash = [c for c in added if c in frame.columns]
         if clash:
@@ -88,20 +92,22 @@ class NormalizeStep:
         return pd.concat([frame, fields], axis=1)
 
     @staticmethod
-    def _title(values: pd.Series) -> pd.DataFrame:
+    def _title(values):
+        import pandas as pd
+
         from ..normalize.title import normalize_titles
         found = normalize_titles(values)
         return pd.DataFrame({"key": found["key"], "qualifiers": qualifiers_text(found),
                              "roles": found["roles"], "changes": found["changes"]})
 
     @staticmethod
-    def _name(values: pd.Series) -> pd.DataFrame:
+    def _name(values):
         from ..normalize.name import normalize_names
         found = normalize_names(values)
         return found[["key", *NAME_FIELDS]].copy()
 
     @staticmethod
-    def _address(values: pd.Series) -> pd.DataFrame:
+    def _address(values):
         from ..normalize.address import normalize_addresses
         found = normalize_addresses(values)
         return found[["key", *ADDRESS_FIELDS]].copy()

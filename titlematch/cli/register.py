@@ -3,9 +3,6 @@ from __future__ import annotations
 
 import argparse
 
-from ..io import Rejects, read_table, rejects_path_for
-from ..runtime.progress import Summary
-from ..linking.register import RegisterIndex
 from .link import _fields, add_common_field_options
 
 ORDER = 39
@@ -25,6 +22,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
+    from ..io import Rejects, read_table, rejects_path_for
+    from ..linking.register import RegisterIndex
+    from ..runtime.progress import Summary
+
     summary = Summary("register", args.quiet)
     rejects = Rejects()
     frame = read_table(args.file, required=[args.id_col], encoding=args.encoding, rejects=rejects)

@@ -8,7 +8,7 @@ import pandas as pd
 from ..io.lexicon import load_lexicon, load_mapping
 
 SOC_PATTERN = r"^\d{2}-\d{4}(\.\d{2})?$"
-SOC_LEVELS = ("as_given", "detailed", "broad", "minor", "major")  # levels of the SOC hierarchy to compare at
+from .levels import SOC_LEVELS  # noqa: F401  (re-exported; defined apart so the command line loads no pandas)
 
 
 def valid_codes(codes: pd.Series, pattern: str = SOC_PATTERN) -> pd.Series:
