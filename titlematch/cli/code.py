@@ -26,6 +26,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="FILE", help="output CSV or Parquet (by suffix)")
     p.add_argument("--title-col", default="title")
     p.add_argument("--context-col", default="context")
+    p.add_argument("--output-prefix", default="", metavar="PREFIX",
+                   help="write the added columns as PREFIXcode, PREFIXconfidence, ...; input columns are never "
+                        "overwritten, so a file with its own code, confidence or decision column needs this")
     p.add_argument("--features", metavar="FILE", help="also write every candidate's features here (reads FILE whole)")
     p.add_argument("--threshold", type=float, help="override the model's acceptance threshold")
     add_run_arguments(p)
@@ -36,21 +39,21 @@ class CodeStep:
     """The per-chunk step: every input column plus the coder's columns. Loaded once per process."""
 
     def __init__(self, dictionary: str, model: str | None, title_col: str, context_col: str,
-                 threshold: float | None = None):
+                 threshold: float | None = None, output_prefix: str = "", source: str = "<input>"):
         from ..coding.coder import TitleCoder
-        self.coder = TitleCoder.load(dictionary)
+        self.coder = TitleCoder.load(dictionary).set_params(title_col=title_col, context_col=context_col,
+                                                            output_prefix=output_prefix)
         self.model = None
         if model:
             from ..confidence.model import ConfidenceModel
             self.model = ConfidenceModel.load(model)
             if threshold is not None:
                 self.model.threshold_ = threshold
-        self.title_col, self.context_col = title_col, context_col
+        self.source = source
 
     def __call__(self, frame):
-        work = frame.rename(columns={self.title_col: "title", self.context_col: "context"})
-        coded = self.coder.code(work, confidence=self.model)
-        return coded.rename(columns={"title": self.title_col, "context": self.context_col})
+        frame.attrs["source_file"] = self.source
+        return self.coder.code(frame, confidence=self.model)
 
 
 def _manifest_digest(directory: str | None) -> str:
@@ -68,18 +71,22 @@ def run(args) -> int:
     from ..runtime.runner import run_chunked
 
     summary = Summary("code", args.quiet)
-    step = CodeStep(args.dictionary, args.model, args.title_col, args.context_col, args.threshold)
+    step = CodeStep(args.dictionary, args.model, args.title_col, args.context_col, args.threshold,
+                    args.output_prefix, str(args.file))
     options = {"command": "code", "dictionary": _manifest_digest(args.dictionary),
                "model": _manifest_digest(args.model), "title_col": args.title_col,
                "context_col": args.context_col, "threshold": args.threshold}
+    if args.output_prefix:
+        options["output_prefix"] = args.output_prefix
     result = run_chunked(args.file, args.out, step, required=[args.title_col], options=options,
                          desc="code titles", **run_arguments(args))
     counts = {"rows_in": result.rows_in, "coded": result.rows_out}
     if step.model is not None:
-        decisions = pd.read_parquet(result.output, columns=["decision"]) if str(result.output).endswith(
-            (".parquet", ".pq")) else pd.read_csv(result.output, usecols=["decision"], dtype=str)
-        counts |= {"accepted": int((decisions["decision"] == "accept").sum()),
-                   "referred": int((decisions["decision"] == "refer").sum())}
+        column = args.output_prefix + "decision"
+        decisions = pd.read_parquet(result.output, columns=[column]) if str(result.output).endswith(
+            (".parquet", ".pq")) else pd.read_csv(result.output, usecols=[column], dtype=str)
+        counts |= {"accepted": int((decisions[column] == "accept").sum()),
+                   "referred": int((decisions[column] == "refer").sum())}
     counts["rejected"] = result.rows_rejected
     if result.resumed_from:
         counts["chunks_resumed"] = result.resumed_from
@@ -87,6 +94,5 @@ def run(args) -> int:
     summary.print()
     if args.features:
         frame = read_table(args.file, required=(args.title_col,), encoding=args.encoding)
-        work = frame.rename(columns={args.title_col: "title", args.context_col: "context"})
-        write_table(step.coder.features(work), args.features)
+        write_table(step.coder.features(frame), args.features)
     return 0

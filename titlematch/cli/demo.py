@@ -34,6 +34,11 @@ def run(args) -> int:
     files = write_scenario(data, seed=args.seed, small=args.small)
     print(f"invented scenario written to {data} ({len(files)} files)")
     past = [str(data / f"past_{y}.csv") for y in (2022, 2023, 2024)]
+    # last year's titles without their codes, to code again for the drift report (a file's own code
+    # column is never overwritten by the machine's)
+    from ..io import read_table, write_table
+    last_titles = data / "past_2024_titles.csv"
+    write_table(read_table(past[-1]).drop(columns="code"), last_titles)
     steps = [
         ("build the title dictionary from three past years",
          ["dictionary", *past, "--classification", str(data / "classification.csv"), "--out", str(out / "dictionary")]),
@@ -45,14 +50,15 @@ def run(args) -> int:
          ["code", str(data / "new_2025.csv"), "--dictionary", str(out / "dictionary"), "--model", str(out / "model"),
           "--out", str(out / "coded_2025.csv")]),
         ("code last year again, for the drift report",
-         ["code", past[-1], "--dictionary", str(out / "dictionary"), "--model", str(out / "model"),
+         ["code", str(last_titles), "--dictionary", str(out / "dictionary"), "--model", str(out / "model"),
           "--out", str(out / "coded_2024.csv")]),
         ("write the referral queue for coders",
          ["queue", str(out / "coded_2025.csv"), "--dictionary", str(out / "dictionary"),
           "--out", str(out / "referral_queue_2025.xlsx")]),
         ("list manual codes the model contradicts",
          ["disagreements", str(data / "gold_2025.csv"), "--dictionary", str(out / "dictionary"), "--model",
-          str(out / "model"), "--manual-col", "manual_code", "--out", str(out / "disagreements_2025.csv")]),
+          str(out / "model"), "--manual-col", "manual_code", "--output-prefix", "machine_",
+          "--out", str(out / "disagreements_2025.csv")]),
         ("evaluate against the gold sample",
          ["evaluate", str(out / "coded_2025.csv"), "--gold", str(data / "gold_2025.csv"), "--out", str(out / "evaluation")]),
         ("compare last year with this year",

@@ -19,6 +19,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--min-confidence", type=float, default=0.9, help="list disagreements at or above (default 0.9)")
     p.add_argument("--title-col", default="title")
     p.add_argument("--context-col", default="context")
+    p.add_argument("--output-prefix", default="", metavar="PREFIX",
+                   help="write the model's columns as PREFIXcode, PREFIXconfidence, ...; needed when the file "
+                        "has its own code column (a gold sample's expert code): input columns are never "
+                        "overwritten")
     return p
 
 
@@ -30,12 +34,13 @@ def run(args) -> int:
     from ..review.queue import disagreements
 
     summary = Summary("disagreements", args.quiet)
-    coder = TitleCoder.load(args.dictionary)
+    coder = TitleCoder.load(args.dictionary).set_params(title_col=args.title_col, context_col=args.context_col,
+                                                        output_prefix=args.output_prefix)
     model = ConfidenceModel.load(args.model)
     frame = read_table(args.file, required=(args.title_col, args.manual_col))
-    work = frame.rename(columns={args.title_col: "title", args.context_col: "context"})
-    coded = coder.code(work, confidence=model).rename(columns={"title": args.title_col, "context": args.context_col})
-    found = disagreements(coded, args.manual_col, min_confidence=args.min_confidence)
+    frame.attrs["source_file"] = str(args.file)
+    coded = coder.code(frame, confidence=model)
+    found = disagreements(coded, args.manual_col, min_confidence=args.min_confidence, prefix=args.output_prefix)
     write_table(found, args.out)
     summary.set(rows_in=len(frame), disagreements=len(found))
     summary.print()

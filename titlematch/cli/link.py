@@ -63,6 +63,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--register-fields", metavar="ROLE=COLUMN,...",
                         help="register column names when they differ from the records' (same syntax as --fields)")
     parser.add_argument("--id-col", default="register_id", help="register id column (default register_id)")
+    parser.add_argument("--output-prefix", default="", metavar="PREFIX",
+                        help="write the added columns as PREFIXregister_id, PREFIXdecision, ...; input columns are "
+                             "never overwritten, so a file with its own register_id or decision column needs this")
     add_run_arguments(parser)
     return parser
 
@@ -102,12 +105,11 @@ class LinkStep:
         import pandas as pd
 
         from ..io import ROW_COLUMN, Rejects
-        from ..linking.linker import OUTPUT_COLUMNS
         from ..runtime.runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN
 
         rejects = Rejects()
         result = self.linker.link(chunk, rejects=rejects, source=self.source)
-        added = [c for c in result.columns if c not in chunk.columns or c in OUTPUT_COLUMNS]
+        added = [c for c in result.columns if c not in chunk.columns]
         position = pd.Series(np.arange(len(chunk)), index=chunk[ROW_COLUMN].to_numpy())
         out = chunk.reset_index(drop=True).copy()
         for column in added:
@@ -137,14 +139,16 @@ def run(args) -> int:
     linker = EstablishmentLinker(fields, id_column=args.id_col, record_id=args.record_id,
                                  threshold=args.threshold, refer_threshold=args.refer_threshold,
                                  one_to_one=args.one_to_one, k=args.neighbours, max_block=args.max_block,
-                                 workers=args.workers)
+                                 workers=args.workers, output_prefix=args.output_prefix)
     rejects = Rejects()
     if args.dedupe:  # duplicates can be anywhere in the file: it is read whole
         records = read_table(args.file, encoding=args.encoding, rejects=rejects)
         result = linker.dedupe(records, rejects=rejects, source=args.file)
         write_table(result, args.out)
-        summary.set(rows_in=len(records), groups=result["cluster_id"].nunique(),
-                    records_with_duplicates=int((result["cluster_size"] > 1).sum()), rejected=len(rejects.rows()))
+        prefix = args.output_prefix
+        summary.set(rows_in=len(records), groups=result[prefix + "cluster_id"].nunique(),
+                    records_with_duplicates=int((result[prefix + "cluster_size"] > 1).sum()),
+                    rejected=len(rejects.rows()))
         if len(rejects):
             rejects.write(rejects_path_for(args.out))
         summary.print()
@@ -163,11 +167,14 @@ def run(args) -> int:
                "register_fields": args.register_fields, "id_col": args.id_col, "threshold": args.threshold,
                "refer_threshold": args.refer_threshold, "one_to_one": args.one_to_one, "training": args.training,
                "neighbours": args.neighbours, "max_block": args.max_block}
+    if args.output_prefix:
+        options["output_prefix"] = args.output_prefix
     result = run_chunked(args.file, args.out, LinkStep(linker, str(args.file)), options=options,
                          desc="link records", **run_arguments(args))
-    decisions = (pd.read_parquet(result.output, columns=["decision"]) if str(result.output).endswith((".parquet", ".pq"))
-                 else pd.read_csv(result.output, usecols=["decision"], dtype=str, keep_default_na=False))
-    counts = decisions["decision"].value_counts()
+    column = args.output_prefix + "decision"
+    decisions = (pd.read_parquet(result.output, columns=[column]) if str(result.output).endswith((".parquet", ".pq"))
+                 else pd.read_csv(result.output, usecols=[column], dtype=str, keep_default_na=False))
+    counts = decisions[column].value_counts()
     summary.set(rows_in=result.rows_in, accepted=counts.get("accept", 0), referred=counts.get("refer", 0),
                 no_match=counts.get("no-match", 0), rejected=result.rows_rejected + len(rejects.rows()))
     if len(rejects):  # register rows refused while building the index

@@ -77,19 +77,12 @@ class NormalizeStep:
     source: str = "<input>"
 
     def __call__(self, frame):
-        import pandas as pd
-
+        from ..io.columns import add_outputs, output_names
         added = output_columns(self.kind, self.column)
-        clash = [c for c in added if c in frame.columns]
-        if clash:
-            from ..io import InputError
-            raise InputError(f"{self.source}: already has column(s) {', '.join(clash)}; rename them or "
-                             f"normalize another column")
-        values = frame[self.column]
-        fields = getattr(self, f"_{self.kind}")(values)
+        output_names(frame.columns, added, source=self.source, option=None)  # refuse before the work
+        fields = getattr(self, f"_{self.kind}")(frame[self.column])
         fields.columns = added
-        fields.index = frame.index
-        return pd.concat([frame, fields], axis=1)
+        return add_outputs(frame, fields, source=self.source, option=None)
 
     @staticmethod
     def _title(values):

@@ -15,23 +15,15 @@ import numpy as np
 import pandas as pd
 from sklearn.base import BaseEstimator
 
+from ..io import ROW_COLUMN
 from ..io.artefact import load_artefact
+from ..io.columns import add_outputs
 from .candidates import TitleIndex
 from .dictionary import KIND, TitleDictionary
 from .features import FEATURES, ContextTables, candidate_features
 from ..normalize.title import normalize_titles
 
 OUTPUT_COLUMNS = ["title_normalized", "code", "code_title", "score", "code_2", "score_2", "code_3", "score_3"]
-
-
-def _as_frame(X) -> pd.DataFrame:
-    if isinstance(X, pd.DataFrame):
-        if "title" not in X.columns:
-            raise ValueError(f"X must have a 'title' column; it has {list(X.columns)}")
-        return X
-    if isinstance(X, pd.Series):
-        return pd.DataFrame({"title": X.values}, index=X.index)
-    return pd.DataFrame({"title": list(X)})
 
 
 class TitleCoder(BaseEstimator):
@@ -49,6 +41,12 @@ class TitleCoder(BaseEstimator):
         Candidate codes kept per title.
     code_level : {"as-is", "soc"}
         ``"soc"`` maps O*NET-SOC codes to their SOC 2018 detailed occupation.
+    title_col, context_col : str
+        Input columns holding the job title and its optional context (industry, employer); the
+        input's other columns are carried through untouched, whatever their names.
+    output_prefix : str
+        Written before the name of every column ``code`` adds. Input columns are never overwritten:
+        an added column named like an input column is refused (``titlematch.io.columns``).
 
     Examples
     --------
@@ -61,20 +59,41 @@ class TitleCoder(BaseEstimator):
     """
 
     def __init__(self, half_life: float = 3.0, n_neighbours: int = 10, classifier_top: int = 3,
-                 max_candidates: int = 10, code_level: str = "as-is", random_state: int = 0):
+                 max_candidates: int = 10, code_level: str = "as-is", random_state: int = 0,
+                 title_col: str = "title", context_col: str = "context", output_prefix: str = ""):
         self.half_life = half_life
         self.n_neighbours = n_neighbours
         self.classifier_top = classifier_top
         self.max_candidates = max_candidates
         self.code_level = code_level
         self.random_state = random_state
+        self.title_col = title_col
+        self.context_col = context_col
+        self.output_prefix = output_prefix
+
+    def _as_frame(self, X) -> pd.DataFrame:
+        if isinstance(X, pd.DataFrame):
+            if self.title_col not in X.columns:
+                raise ValueError(f"X must have a {self.title_col!r} column (title_col); it has {list(X.columns)}")
+            return X
+        if isinstance(X, pd.Series):
+            return pd.DataFrame({self.title_col: X.values}, index=X.index)
+        return pd.DataFrame({self.title_col: list(X)})
 
     # ---------------------------------------------------------------- fitting
     def fit(self, X, y=None, classification: pd.DataFrame | None = None) -> "TitleCoder":
-        """Build the dictionary from records ``X`` (``title`` [, ``context``, ``year``]) coded ``y``."""
-        records = _as_frame(X).copy()
+        """Build the dictionary from records ``X`` (``title_col`` [, ``context_col``, ``year``]) coded ``y``
+        (default: X's ``code`` column)."""
+        frame = self._as_frame(X)
+        # the dictionary's own column names, on a frame of our own: the user's other columns stay out
+        records = pd.DataFrame({"title": frame[self.title_col].to_numpy()}, index=frame.index)
+        for name, column in (("context", self.context_col), ("year", "year"), ("code", "code"),
+                             (ROW_COLUMN, ROW_COLUMN)):
+            if column in frame.columns:
+                records[name] = frame[column].to_numpy()
         if y is not None:
             records["code"] = np.asarray(y, dtype=object)
+        records.attrs = dict(frame.attrs)
         dictionary = TitleDictionary.build(records, classification, half_life=self.half_life,
                                            code_level=self.code_level)
         return self.fit_dictionary(dictionary)
@@ -121,9 +140,9 @@ class TitleCoder(BaseEstimator):
         """Normalize titles and reduce them to distinct units: everything a title's code depends on
         (key, primary role, number of roles and of normalizer changes, context), so that a record is
         coded the same whatever else is in its batch."""
-        normalized = normalize_titles(frame["title"])
+        normalized = normalize_titles(frame[self.title_col])
         normalized.index = range(len(frame))
-        context = (frame["context"].fillna("").astype(str).to_numpy() if "context" in frame.columns
+        context = (frame[self.context_col].fillna("").astype(str).to_numpy() if self.context_col in frame.columns
                    else np.full(len(frame), ""))
         changes = normalized["changes"].map(lambda c: len(c.split("; ")) if c else 0)
         rows = pd.DataFrame({"key": normalized["key"].to_numpy(), "primary": normalized["primary"].fillna("").to_numpy(),
@@ -151,7 +170,7 @@ class TitleCoder(BaseEstimator):
         Columns: ``record`` (position in ``X``), ``code``, ``key`` (the dictionary title behind the
         code) and the features listed in ``titlematch.coding.features.FEATURES``.
         """
-        frame = _as_frame(X)
+        frame = self._as_frame(X)
         units, unit_of_row, _ = self._units(frame)
         cands = self._unit_candidates(units)
         rows = pd.DataFrame({"record": np.arange(len(frame)), "unit": unit_of_row})
@@ -168,15 +187,21 @@ class TitleCoder(BaseEstimator):
         return cands
 
     def code(self, X, confidence=None) -> pd.DataFrame:
-        """Every input column plus ``title_normalized``, ``code``, ``code_title``, ``score`` and the
-        next two candidates; with a fitted ``confidence`` model also ``confidence*`` and ``decision``."""
-        frame = _as_frame(X)
+        """A new frame: every input column unchanged, plus ``title_normalized``, ``code``, ``code_title``,
+        ``score`` and the next two candidates; with a fitted ``confidence`` model also ``confidence*`` and
+        ``decision``. Added columns are named ``output_prefix + name``; one that would overwrite an input
+        column raises ``titlematch.io.columns.ColumnClash``."""
+        frame = self._as_frame(X)
+        source = frame.attrs.get("source_file", "<input>")
+        return add_outputs(frame, self._outputs(frame, confidence), prefix=self.output_prefix, source=source)
+
+    def _outputs(self, frame: pd.DataFrame, confidence=None) -> pd.DataFrame:
+        """The columns ``code`` adds, unprefixed, one row per row of ``frame`` (positional index)."""
         units, unit_of_row, normalized = self._units(frame)
         cands = self._unit_candidates(units)
         if confidence is not None:
             cands = confidence.score_candidates(cands)
-        out = frame.copy()
-        out["title_normalized"] = normalized["key"].to_numpy()
+        out = pd.DataFrame({"title_normalized": normalized["key"].to_numpy()})
         top = _top_three(cands, len(units), self.code_titles_, with_confidence=confidence is not None)
         for col in top.columns:
             out[col] = top[col].to_numpy()[unit_of_row]
@@ -185,12 +210,12 @@ class TitleCoder(BaseEstimator):
         return out
 
     def predict(self, X) -> np.ndarray:
-        return self.code(X)["code"].to_numpy(dtype=object)
+        return self._outputs(self._as_frame(X))["code"].to_numpy(dtype=object)
 
     def predict_proba(self, X) -> np.ndarray:
         """Scores over ``classes_`` normalized per record (rows without candidates are all zero)."""
         feats = self.features(X)
-        n = len(_as_frame(X))
+        n = len(self._as_frame(X))
         proba = np.zeros((n, len(self.classes_)))
         col = pd.Index(self.classes_).get_indexer(feats["code"])
         proba[feats["record"].to_numpy(), col] = feats["score"].to_numpy()

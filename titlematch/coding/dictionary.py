@@ -369,8 +369,10 @@ def _sum_counts(table: pd.DataFrame, extra: pd.DataFrame, keys: list[str]) -> pd
 def _read_records(path, title_col, code_col, context_col, year_col) -> pd.DataFrame:
     rejects = Rejects()
     frame = read_table(path, required=(title_col, code_col), rejects=rejects)
-    renames = {title_col: "title", code_col: "code", context_col: "context", year_col: "year"}
-    frame = frame.rename(columns={k: v for k, v in renames.items() if k in frame.columns})
+    # only the columns the dictionary reads, under its own names: a file's other columns (an unrelated
+    # "title", say, beside --title-col job) can never be taken for them
+    picked = {"title": title_col, "code": code_col, "context": context_col, "year": year_col, ROW_COLUMN: ROW_COLUMN}
+    frame = pd.DataFrame({name: frame[column] for name, column in picked.items() if column in frame.columns})
     frame.attrs["source_file"] = str(path)
     frame.attrs["checksum"] = file_sha256(path)
     frame.attrs["rejects"] = rejects

@@ -34,6 +34,7 @@ from ..io.artefact import ArtefactError, load_artefact, save_artefact
 from .blocking import KeyRule, NeighbourRule, TokenRule, candidate_pairs, default_rules
 from .comparison import agreement_levels, compare
 from ..io import ROW_COLUMN, InputError, Rejects
+from ..io.columns import add_outputs, unused_name
 from .register import Field, RegisterIndex, check_fields, resolve_fields
 
 log = logging.getLogger(__name__)
@@ -43,6 +44,7 @@ MODEL_KIND = "establishment-linker"
 _RULE_TYPES = {"KeyRule": KeyRule, "TokenRule": TokenRule, "NeighbourRule": NeighbourRule}
 OUTPUT_COLUMNS = ["register_id", "confidence", "decision", "register_name", "register_address",
                   "register_id_2", "confidence_2", "explanation"]
+DEDUPE_COLUMNS = ["cluster_id", "cluster_size", "duplicate_confidence"]
 _CLIP = 1e-4  # m and u are kept inside (CLIP, 1 - CLIP) so no single field has infinite weight
 LN2 = np.log(2.0)
 
@@ -274,6 +276,9 @@ class EstablishmentLinker:
         register without duplicates.
     workers : int
         Threads for rapidfuzz (-1 = all cores).
+    output_prefix : str
+        Written before the name of every column ``link`` / ``dedupe`` add. Input columns are never
+        overwritten: an added column named like an input column is refused (``titlematch.io.columns``).
 
     Attributes
     ----------
@@ -285,7 +290,8 @@ class EstablishmentLinker:
     def __init__(self, fields=None, *, id_column: str = "register_id", record_id: str | None = None,
                  threshold: float = 0.9, refer_threshold: float = 0.5, one_to_one: bool = False,
                  rules: Sequence | None = None, k: int = 10, max_block: int = 100, em_candidates: int = 3,
-                 exclusive_em: bool = True, em_records: int = 20_000, workers: int = -1) -> None:
+                 exclusive_em: bool = True, em_records: int = 20_000, workers: int = -1,
+                 output_prefix: str = "") -> None:
         self.fields = fields
         self.id_column = id_column
         self.record_id = record_id
@@ -299,6 +305,7 @@ class EstablishmentLinker:
         self.exclusive_em = exclusive_em
         self.em_records = em_records
         self.workers = workers
+        self.output_prefix = output_prefix
 
     # ---------------------------------------------------------------- fitting
     def _validate(self) -> None:
@@ -376,7 +383,8 @@ class EstablishmentLinker:
                 raise InputError(f"training: the file has no field columns ({', '.join(field_columns)}); "
                                  "give the records it refers to")
             ids = self._record_ids(training)
-            by_id = records.assign(_id=self._record_ids(records).to_numpy()).drop_duplicates("_id").set_index("_id")
+            key = unused_name(records.columns, "_record_key")
+            by_id = records.assign(**{key: self._record_ids(records).to_numpy()}).drop_duplicates(key).set_index(key)
             missing = ~ids.isin(by_id.index)
             if missing.any():
                 raise InputError(f"training: {int(missing.sum())} record id(s) not among the records, "
@@ -428,8 +436,9 @@ class EstablishmentLinker:
 
     def link(self, records: pd.DataFrame, *, rejects: Rejects | None = None,
              source: str = "<records>") -> pd.DataFrame:
-        """Link a batch: every input column plus ``OUTPUT_COLUMNS`` (records with an empty name
-        are set aside in ``rejects`` / ``self.rejects_``).
+        """Link a batch: every input column unchanged plus ``OUTPUT_COLUMNS`` (named ``output_prefix +
+        name``; one that would overwrite an input column raises ``ColumnClash``). Records with an empty
+        name are set aside in ``rejects`` / ``self.rejects_``.
 
         A pure function of the batch once the model is fitted, so a runner can call it per chunk.
         """
@@ -438,18 +447,16 @@ class EstablishmentLinker:
         self._validate()
         self.rejects_ = rejects if rejects is not None else Rejects()
         valid = self._valid_records(records, self.rejects_, source).reset_index(drop=True)
-        result = valid.copy()
-        clashes = [c for c in OUTPUT_COLUMNS if c in result.columns]
-        result = result.rename(columns={c: f"{c}_input" for c in clashes})
         if not len(valid):
-            for c in OUTPUT_COLUMNS:
-                result[c] = pd.Series(dtype=float if c.startswith("confidence") else object)
-            return result
+            empty = pd.DataFrame({c: pd.Series(dtype=float if c.startswith("confidence") else object)
+                                  for c in OUTPUT_COLUMNS})
+            return add_outputs(valid, empty, prefix=self.output_prefix, source=source)
         _, _, _, pairs, features = self._score_input(valid, source)
         self.blocking_ = pairs.attrs.get("rules", {})
         if self.model_ is None:  # unsupervised and not yet fitted: EM on this batch's own pairs
             self.model_ = self._fit_em(pairs, features, self.index_.fields_)
-        return self._decide(result, pairs, features)
+        outputs = self._decide(pd.DataFrame(index=valid.index), pairs, features)
+        return add_outputs(valid, outputs, prefix=self.output_prefix, source=source)
 
     def _pair_scores(self, features: pd.DataFrame) -> tuple[np.ndarray, pd.DataFrame]:
         if isinstance(self.model_, FellegiSunterModel):
@@ -503,7 +510,7 @@ class EstablishmentLinker:
 
     # ---------------------------------------------------------------- saving
     _PARAMS = ("id_column", "record_id", "threshold", "refer_threshold", "one_to_one", "k", "max_block",
-               "em_candidates", "exclusive_em", "em_records", "workers")
+               "em_candidates", "exclusive_em", "em_records", "workers", "output_prefix")
 
     def save(self, directory: str | os.PathLike, *, index_directory: str | os.PathLike | None = None) -> dict:
         """Save the fitted model and settings as an artefact (no pickle); with ``index_directory``
@@ -576,8 +583,11 @@ class EstablishmentLinker:
         fields = [replace(f, register_column=f.column) for f in resolve_fields(self.fields)]
         valid = self._valid_records(records, self.rejects_, source, fields).reset_index(drop=True)
         n = len(valid)
-        index = RegisterIndex(fields, "_dedupe_id").build(valid.assign(_dedupe_id=np.arange(n).astype(str)),
-                                                          source=source)
+        add_outputs(valid.head(0), pd.DataFrame(columns=DEDUPE_COLUMNS), prefix=self.output_prefix,
+                    source=source)  # refuse a clash before the work, not after
+        dedupe_id = unused_name(valid.columns, "_dedupe_id")
+        index = RegisterIndex(fields, dedupe_id).build(valid.assign(**{dedupe_id: np.arange(n).astype(str)}),
+                                                       source=source)
         rules = list(self.rules) if self.rules is not None else default_rules(index.fields_, k=self.k)
         pairs = candidate_pairs(index.prepared_, index, rules, new_chars=index.char_matrix_,
                                 new_words=index.word_matrix_, max_block=self.max_block, self_join=True)
@@ -595,9 +605,8 @@ class EstablishmentLinker:
         best = np.zeros(n)
         np.maximum.at(best, a, probability[linked])
         np.maximum.at(best, b, probability[linked])
-        result = valid.copy()
         width = len(str(max(n, 1)))
-        result["cluster_id"] = [f"g{label:0{width}d}" for label in labels]
-        result["cluster_size"] = np.bincount(labels, minlength=1)[labels] if n else []
-        result["duplicate_confidence"] = np.round(best, 4)
-        return result
+        result = pd.DataFrame({"cluster_id": [f"g{label:0{width}d}" for label in labels],
+                               "cluster_size": np.bincount(labels, minlength=1)[labels] if n else [],
+                               "duplicate_confidence": np.round(best, 4)})
+        return add_outputs(valid, result, prefix=self.output_prefix, source=source)

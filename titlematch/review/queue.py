@@ -16,6 +16,7 @@ import pandas as pd
 
 from ..coding.dictionary import TitleDictionary
 from ..io import ROW_COLUMN, InputError, Rejects, require_columns
+from ..io.columns import add_outputs
 
 QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context",
                  "code", "code_title", "confidence", "code_2", "code_2_title", "confidence_2",
@@ -146,17 +147,21 @@ def apply_feedback(dictionary: TitleDictionary, decisions: pd.DataFrame, *, year
     return dictionary.update(records, source=source)
 
 
-def disagreements(coded: pd.DataFrame, manual_col: str, *, min_confidence: float = 0.9) -> pd.DataFrame:
+def disagreements(coded: pd.DataFrame, manual_col: str, *, min_confidence: float = 0.9,
+                  prefix: str = "") -> pd.DataFrame:
     """Records whose manual code differs from a model code held with at least ``min_confidence``,
-    most confident first, with the model's confidence in the manual code when it was a candidate."""
-    require_columns(coded, (manual_col, "code", "confidence"), "coded file")
+    most confident first, with the model's confidence in the manual code when it was a candidate
+    (``PREFIXmanual_code_confidence``). ``prefix`` is the coder's ``output_prefix``."""
+    code, confidence = prefix + "code", prefix + "confidence"
+    require_columns(coded, (manual_col, code, confidence), "coded file")
     manual = coded[manual_col].fillna("").astype(str).str.strip()
-    conf = pd.to_numeric(coded["confidence"], errors="coerce").fillna(0)
+    conf = pd.to_numeric(coded[confidence], errors="coerce").fillna(0)
     manual_conf = pd.Series(np.nan, index=coded.index)
     for suffix in ("_2", "_3"):
-        if f"code{suffix}" in coded.columns:
-            hit = coded[f"code{suffix}"].astype(str) == manual
-            manual_conf = manual_conf.where(~hit, pd.to_numeric(coded[f"confidence{suffix}"], errors="coerce"))
-    mask = (manual != "") & (coded["code"].astype(str) != manual) & (conf >= min_confidence)
-    out = coded[mask].assign(manual_code_confidence=manual_conf[mask])
-    return out.sort_values("confidence", ascending=False, kind="stable").reset_index(drop=True)
+        if f"{code}{suffix}" in coded.columns:
+            hit = coded[f"{code}{suffix}"].astype(str) == manual
+            manual_conf = manual_conf.where(~hit, pd.to_numeric(coded[f"{confidence}{suffix}"], errors="coerce"))
+    mask = (manual != "") & (coded[code].astype(str) != manual) & (conf >= min_confidence)
+    out = add_outputs(coded[mask], pd.DataFrame({"manual_code_confidence": manual_conf[mask].to_numpy()}),
+                      prefix=prefix, source="coded file")
+    return out.sort_values(confidence, ascending=False, kind="stable").reset_index(drop=True)
