@@ -4,6 +4,7 @@
               ``encoding`` do the hostile-CSV work)
 ``write``     tables out, atomically (``files``: suffixes, checksums, atomic replacement)
 ``rejects``   rows set aside with file, row, column and reason; ``errors``: ``InputError``
+``columns``   the clash policy: columns a step adds never overwrite an input column
 ``artefact``  checksummed directories of Parquet, .npy and JSON that load without running code
 ``lexicon``   the CSV tables shipped in ``lexicons/``
 """

@@ -23,7 +23,7 @@ from collections.abc import Iterable
 
 import pandas as pd
 
-from . import InputError
+from .errors import InputError
 
 PREFIX_OPTION = "--output-prefix"
 
