@@ -1,11 +1,21 @@
 """The demo command end to end, on the reduced scenario: every step runs and leaves its result."""
 from __future__ import annotations
 
+import hashlib
+import os
 from html.parser import HTMLParser
+from pathlib import Path
 
 import pandas as pd
+import pytest
 
 from titlematch.cli import main
+
+# SHA-256 of every data output of `demo --small` (CSV, .npy, Parquet; not manifests, which carry times,
+# nor .xlsx/.png/.html). A change that is meant to change outputs regenerates it in the same commit:
+#   TITLEMATCH_UPDATE_GOLDEN=1 python -m pytest -q tests/test_demo.py
+GOLDEN = Path(__file__).parent / "golden" / "demo_small.sha256"
+DATA_SUFFIXES = (".csv", ".npy", ".parquet")
 
 
 class _Images(HTMLParser):
@@ -18,10 +28,38 @@ class _Images(HTMLParser):
             self.sources.append(dict(attrs).get("src", ""))
 
 
-def test_demo_runs_a_whole_year_on_the_small_scenario(tmp_path, capsys):
-    out = tmp_path / "demo"
-    assert main(["demo", "--small", "--out", str(out), "--quiet"]) == 0
-    printed = capsys.readouterr().out
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    """One run of the demo shared by the tests below: (output directory, what it printed)."""
+    import contextlib
+    import io
+    out = tmp_path_factory.mktemp("demo") / "demo"
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        assert main(["demo", "--small", "--out", str(out), "--quiet"]) == 0
+    return out, printed.getvalue()
+
+
+def data_hashes(out: Path) -> dict[str, str]:
+    return {path.relative_to(out).as_posix(): hashlib.sha256(path.read_bytes()).hexdigest()
+            for path in sorted(out.rglob("*")) if path.is_file() and path.suffix in DATA_SUFFIXES}
+
+
+def test_demo_outputs_are_byte_identical_to_the_golden_hashes(demo):
+    out, _ = demo
+    hashes = data_hashes(out)
+    if os.environ.get("TITLEMATCH_UPDATE_GOLDEN"):
+        GOLDEN.parent.mkdir(exist_ok=True)
+        GOLDEN.write_text("".join(f"{h}  {name}\n" for name, h in sorted(hashes.items())), encoding="utf-8")
+    golden = dict(reversed(line.split("  ", 1)) for line in GOLDEN.read_text(encoding="utf-8").splitlines())
+    assert sorted(hashes) == sorted(golden), "files differ from tests/golden/demo_small.sha256"
+    changed = [name for name in sorted(hashes) if hashes[name] != golden[name]]
+    assert not changed, (f"outputs changed: {changed}; if intended, regenerate with "
+                         "TITLEMATCH_UPDATE_GOLDEN=1 python -m pytest -q tests/test_demo.py and say why in the commit")
+
+
+def test_demo_runs_a_whole_year_on_the_small_scenario(demo):
+    out, printed = demo
     for name in ("coded_2025.csv", "referral_queue_2025.xlsx", "evaluation/report.html", "drift/drift.html",
                  "model/automation_curve.png", "model/reliability.png", "disagreements_2025.csv",
                  "linked_2025.csv", "dictionary/manifest.json", "register_index/manifest.json"):
