@@ -8,8 +8,6 @@ context, so the output is the same however the file is cut into chunks.
 from __future__ import annotations
 
 import argparse
-import json
-from pathlib import Path
 
 from ._run import add_run_arguments, run_arguments
 
@@ -56,28 +54,20 @@ class CodeStep:
         return self.coder.code(frame, confidence=self.model)
 
 
-def _manifest_digest(directory: str | None) -> str:
-    if not directory:
-        return ""
-    path = Path(directory) / "manifest.json"
-    return json.dumps(json.loads(path.read_text(encoding="utf-8"))["files"], sort_keys=True) if path.is_file() else ""
-
-
 def run(args) -> int:
     import pandas as pd
 
     from ..io import read_table, write_table
     from ..runtime.progress import Summary
+    from ..runtime.fingerprint import run_options
     from ..runtime.runner import run_chunked
 
     summary = Summary("code", args.quiet)
     step = CodeStep(args.dictionary, args.model, args.title_col, args.context_col, args.threshold,
                     args.output_prefix, str(args.file))
-    options = {"command": "code", "dictionary": _manifest_digest(args.dictionary),
-               "model": _manifest_digest(args.model), "title_col": args.title_col,
-               "context_col": args.context_col, "threshold": args.threshold}
-    if args.output_prefix:
-        options["output_prefix"] = args.output_prefix
+    options = run_options("code", {"dictionary": args.dictionary, "model": args.model},
+                          title_col=args.title_col, context_col=args.context_col, threshold=args.threshold,
+                          output_prefix=args.output_prefix)
     result = run_chunked(args.file, args.out, step, required=[args.title_col], options=options,
                          desc="code titles", **run_arguments(args))
     counts = {"rows_in": result.rows_in, "coded": result.rows_out}

@@ -132,6 +132,7 @@ def run(args) -> int:
     from ..io import InputError, Rejects, TableReader, read_table, rejects_path_for, write_table
     from ..linking.linker import EstablishmentLinker
     from ..runtime.progress import Summary
+    from ..runtime.fingerprint import run_options
     from ..runtime.runner import run_chunked
 
     summary = Summary("link", args.quiet)
@@ -163,12 +164,11 @@ def run(args) -> int:
         # Without training, m and u are estimated by EM once, on the file's first records, and then
         # kept: every chunk (and every Dask worker) is scored with the same weights.
         linker.link(sample, rejects=Rejects(), source=args.file)
-    options = {"command": "link", "register": str(Path(args.register).resolve()), "fields": args.fields,
-               "register_fields": args.register_fields, "id_col": args.id_col, "threshold": args.threshold,
-               "refer_threshold": args.refer_threshold, "one_to_one": args.one_to_one, "training": args.training,
-               "neighbours": args.neighbours, "max_block": args.max_block}
-    if args.output_prefix:
-        options["output_prefix"] = args.output_prefix
+    # the register and training by content: an index rebuilt in place never resumes stale chunks
+    options = run_options("link", {"register": args.register, "training": args.training}, fields=args.fields,
+                          register_fields=args.register_fields, id_col=args.id_col, threshold=args.threshold,
+                          refer_threshold=args.refer_threshold, one_to_one=args.one_to_one,
+                          neighbours=args.neighbours, max_block=args.max_block, output_prefix=args.output_prefix)
     result = run_chunked(args.file, args.out, LinkStep(linker, str(args.file)), options=options,
                          desc="link records", **run_arguments(args))
     column = args.output_prefix + "decision"
