@@ -55,9 +55,9 @@ def hard_negatives(data: dict) -> set[str]:
 
 def run_titlematch(data: dict, truth: dict[str, str], workers: int) -> dict:
     start = time.perf_counter()
-    index = RegisterIndex().build(data["register"])
+    index = RegisterIndex().fit(data["register"])
     built = time.perf_counter()
-    linker = EstablishmentLinker(workers=workers).fit(index)
+    linker = EstablishmentLinker(workers=workers).fit(index, records=data["new"])  # EM on the batch
     out = linker.link(data["new"])
     done = time.perf_counter()
     linked = out[out["decision"] != "no-match"]
@@ -71,8 +71,9 @@ def run_titlematch(data: dict, truth: dict[str, str], workers: int) -> dict:
     true_links = [(r, g) for r, g in truth.items() if g and r in row.index]
     true_pairs = pd.DataFrame({"new": row[[r for r, _ in true_links]].to_numpy(),
                                "register": position[[g for _, g in true_links]].to_numpy()})
-    result["blocking"] = blocking_quality(linker.pairs_, true_pairs, len(out), len(index))
-    result["rules"] = linker.blocking_
+    pairs = linker.candidate_pairs(data["new"])
+    result["blocking"] = blocking_quality(pairs, true_pairs, len(out), len(index))
+    result["rules"] = pairs.attrs["rules"]
     return result
 
 

@@ -24,7 +24,7 @@ def scenario():
 def test_a_title_seen_once_does_not_match_itself_in_self_supervision():
     past = pd.DataFrame({"title": ["line cook"] * 20 + ["zymurgist"], "code": ["35-2014"] * 20 + ["51-9012"],
                          "year": [2023] * 10 + [2024] * 10 + [2024]})
-    d = TitleDictionary.build(past)
+    d = TitleDictionary().fit(past)
     feats = history_labels(d)
     unique = d.units.reset_index(drop=True)
     unit = unique[(unique["key"] == "zymurgist") & (unique["year"] == 2024)]
@@ -36,7 +36,7 @@ def test_a_title_seen_once_does_not_match_itself_in_self_supervision():
 
 def test_single_year_history_splits_records_without_leakage():
     past = pd.DataFrame({"title": ["registered nurse"] * 30 + ["zymurgist"], "code": ["29-1141"] * 30 + ["51-9012"]})
-    feats = history_labels(TitleDictionary.build(past))
+    feats = history_labels(TitleDictionary().fit(past))
     assert not ((feats["key"] == "zymurgist") & (feats["exact"] == 1)).any()
     assert feats["label"].isin([0, 1]).all() and (feats["weight"] >= 1).all()
 

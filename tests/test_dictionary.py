@@ -21,7 +21,7 @@ PAST = pd.DataFrame({
 
 
 def test_rejects_name_row_and_reason_and_counts_add_up():
-    d = TitleDictionary.build(PAST)
+    d = TitleDictionary().fit(PAST)
     rejects = d.rejects.frame()
     assert set(zip(rejects["row"], rejects["column"])) == {(6, "title"), (7, "code"), (7, "year")}
     assert "empty title" in rejects.loc[rejects["row"] == 6, "reason"].iloc[0]
@@ -32,7 +32,7 @@ def test_rejects_name_row_and_reason_and_counts_add_up():
 
 def test_recency_weight_halves_after_half_life():
     past = pd.DataFrame({"title": ["clerk", "clerk"], "code": ["43-9061", "43-4171"], "year": [2021, 2024]})
-    d = TitleDictionary.build(past, half_life=3.0)
+    d = TitleDictionary(half_life=3.0).fit(past)
     w = d.entries.set_index("code")["weight"]
     assert w["43-4171"] == pytest.approx(1.0)
     assert w["43-9061"] == pytest.approx(0.5)  # three years older, one half-life
@@ -41,7 +41,7 @@ def test_recency_weight_halves_after_half_life():
 def test_context_counts_part_a_title_by_context():
     past = pd.DataFrame({"title": ["teacher"] * 4, "code": ["25-2021", "25-2021", "25-2031", "25-2031"],
                          "context": ["elementary school"] * 2 + ["high school"] * 2})
-    d = TitleDictionary.build(past)
+    d = TitleDictionary().fit(past)
     ctx = d.contexts.set_index(["token", "code"])["count"]
     assert ctx[("elementary", "25-2021")] == 2 and ("elementary", "25-2031") not in ctx.index
     assert ctx[("high", "25-2031")] == 2
@@ -60,17 +60,17 @@ def test_update_equals_rebuild_on_the_union():
                       "context": ["hospital", "diner", "diner"], "year": [2022, 2022, 2023]})
     b = pd.DataFrame({"title": ["cook", "charge nurse"], "code": ["35-2012", "29-1141"],
                       "context": ["school cafeteria", "hospital"], "year": [2024, 2024]})
-    updated = TitleDictionary.build(a).update(b)
-    rebuilt = TitleDictionary.build(pd.concat([a, b], ignore_index=True))
+    updated = TitleDictionary().fit(a).update(b)
+    rebuilt = TitleDictionary().fit(pd.concat([a, b], ignore_index=True))
     for name in ("counts", "context_counts", "units"):
         pd.testing.assert_frame_equal(getattr(updated, name), getattr(rebuilt, name))
     pd.testing.assert_frame_equal(updated.entries, rebuilt.entries)
 
 
 def test_diff_lists_new_vanished_and_recoded_titles():
-    old = TitleDictionary.build(pd.DataFrame({"title": ["cook", "cook", "typist"],
+    old = TitleDictionary().fit(pd.DataFrame({"title": ["cook", "cook", "typist"],
                                               "code": ["35-2014", "35-2014", "43-9022"]}))
-    new = TitleDictionary.build(pd.DataFrame({"title": ["cook", "cook", "data scientist"],
+    new = TitleDictionary().fit(pd.DataFrame({"title": ["cook", "cook", "data scientist"],
                                               "code": ["35-2012", "35-2012", "15-2051"]}))
     diff = old.diff(new)
     assert diff.new_titles["key"].tolist() == ["data scientist"]
@@ -80,7 +80,7 @@ def test_diff_lists_new_vanished_and_recoded_titles():
 
 def test_classification_rejects_codes_not_on_it():
     classification = pd.DataFrame({"code": ["29-1141"], "title": ["Registered Nurses"]})
-    d = TitleDictionary.build(pd.DataFrame({"title": ["rn", "cook"], "code": ["29-1141", "35-2014"]}),
+    d = TitleDictionary().fit(pd.DataFrame({"title": ["rn", "cook"], "code": ["29-1141", "35-2014"]}),
                               classification)
     assert d.rejects.frame()["reason"].tolist() == ["code not in the classification"]
     assert ("registered nurses", "29-1141") in set(zip(d.official["key"], d.official["code"]))

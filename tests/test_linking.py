@@ -31,7 +31,7 @@ from titlematch.datasets.scenario import make_register_scenario
 
 def _pair_features(new: pd.DataFrame, register: pd.DataFrame, fields=None) -> pd.DataFrame:
     """Features of every (new row i, register row i) pair."""
-    index = RegisterIndex(fields).build(register)
+    index = RegisterIndex(fields).fit(register)
     prepared = index.prepare(new)
     pairs = pd.DataFrame({"new": np.arange(len(new)), "register": np.arange(len(new))})
     return compare(pairs, prepared, index)
@@ -58,7 +58,7 @@ def test_usps_publication_28_forms_compare_as_identical_addresses():
     assert features["house_number"].tolist() == [1.0, 1.0, 1.0]
     assert features["street"].tolist() == [1.0, 1.0, 1.0]
     assert features["unit"].iloc[:2].tolist() == [1.0, 1.0] and np.isnan(features["unit"].iloc[2])
-    levels = agreement_levels(features, RegisterIndex().build(register).fields_)
+    levels = agreement_levels(features, RegisterIndex().fit(register).fields_)
     assert levels["address"].tolist() == [1.0, 1.0, 1.0]
 
 
@@ -190,7 +190,7 @@ def scenario():
 
 @pytest.fixture(scope="module")
 def linked(scenario):
-    linker = EstablishmentLinker().fit(scenario["register"])
+    linker = EstablishmentLinker().fit(scenario["register"], records=scenario["new"])
     return linker, linker.link(scenario["new"])
 
 
@@ -223,10 +223,10 @@ def test_branch_of_a_chain_at_another_address_is_not_linked():
     register = scenario["register"]
     chain = register[register.duplicated("name", keep=False)].iloc[0]
     other = register[(register["name"] == chain["name"]) & (register["register_id"] != chain["register_id"])]
-    linker = EstablishmentLinker().fit(register.drop(index=chain.name))
     new = pd.concat([scenario["new"], pd.DataFrame([{
         "record_id": "probe", "name": chain["name"], "address": chain["address"], "city": chain["city"],
         "postcode": chain["postcode"], "naics": chain["naics"]}])], ignore_index=True)
+    linker = EstablishmentLinker().fit(register.drop(index=chain.name), records=new)
     out = linker.link(new).set_index("record_id")
     assert len(other)
     assert out.loc["probe", "decision"] != "accept"
@@ -243,11 +243,11 @@ def test_explanation_lists_agreeing_and_disagreeing_fields(linked):
 def test_one_to_one_gives_each_register_entry_at_most_one_record(scenario):
     new = pd.concat([scenario["new"], scenario["new"].assign(record_id=lambda f: f["record_id"] + "-copy")],
                     ignore_index=True)
-    linker = EstablishmentLinker(one_to_one=True).fit(scenario["register"])
+    linker = EstablishmentLinker(one_to_one=True).fit(scenario["register"], records=new)
     out = linker.link(new)
     ids = out.loc[out["decision"] != "no-match", "register_id"]
     assert not ids.duplicated().any()
-    free = EstablishmentLinker().fit(scenario["register"]).link(new)
+    free = EstablishmentLinker().fit(scenario["register"], records=new).link(new)
     assert free.loc[free["decision"] != "no-match", "register_id"].duplicated().any()
 
 
@@ -265,14 +265,14 @@ def test_supervised_model_from_training_pairs(scenario):
 
 
 def test_register_index_round_trip_and_tamper_check(tmp_path, scenario):
-    index = RegisterIndex().build(scenario["register"])
+    index = RegisterIndex().fit(scenario["register"])
     index.save(tmp_path / "index")
     files = sorted(p.name for p in (tmp_path / "index").iterdir())
     assert all(f.endswith((".parquet", ".npy", ".json")) for f in files)  # data only, no pickle
     loaded = RegisterIndex.load(tmp_path / "index")
     records = scenario["new"].head(200)
-    a = EstablishmentLinker().fit(index).link(records)
-    b = EstablishmentLinker().fit(loaded).link(records)
+    a = EstablishmentLinker().fit(index, records=records).link(records)
+    b = EstablishmentLinker().fit(loaded, records=records).link(records)
     pd.testing.assert_frame_equal(a, b)
     with open(tmp_path / "index" / "word_idf.npy", "r+b") as handle:
         handle.seek(-4, 2)
@@ -303,16 +303,16 @@ def test_duplicate_register_ids_name_the_rows(tmp_path):
                     "R2,B Co,2 Main St,X,12345\nR1,C Co,3 Main St,X,12345\n", encoding="utf-8")
     frame = read_table(path)
     with pytest.raises(InputError, match=r"register\.csv.*duplicated id.*'R1' in rows 2, 4"):
-        RegisterIndex().build(frame, source=str(path))
+        RegisterIndex().fit(frame, source=str(path))
 
 
 def test_missing_id_or_field_column_is_a_clear_error(tmp_path):
     frame = pd.DataFrame({"id": ["1"], "name": ["A"], "address": [""], "city": [""], "postcode": [""]})
     with pytest.raises(InputError, match=r"reg\.csv: missing column\(s\) 'register_id'"):
-        RegisterIndex().build(frame, source="reg.csv")
+        RegisterIndex().fit(frame, source="reg.csv")
     frame = frame.rename(columns={"id": "register_id"}).drop(columns="city")
     with pytest.raises(InputError, match=r"reg\.csv: missing column\(s\) 'city'.*--fields"):
-        RegisterIndex().build(frame, source="reg.csv")
+        RegisterIndex().fit(frame, source="reg.csv")
 
 
 def test_cli_register_link_rejects_and_summary(tmp_path, scenario, capsys):

@@ -90,7 +90,7 @@ def load_register(args, fields, rejects):
         index.fields_ = [replace(f, column=columns.get(f.name, f.column)) for f in index.fields_]
         return index
     frame = read_table(path, required=[args.id_col], encoding=args.encoding, rejects=rejects)
-    return RegisterIndex(fields, args.id_col).build(frame, source=str(path))
+    return RegisterIndex(fields, args.id_col).fit(frame, source=str(path))
 
 
 class LinkStep:
@@ -159,11 +159,9 @@ def run(args) -> int:
     index = load_register(args, fields, rejects)
     training = read_table(args.training, encoding=args.encoding, rejects=rejects) if args.training else None
     sample = next(TableReader(args.file, chunk_rows=linker.em_records, encoding=args.encoding).chunks()).frame
-    linker.fit(index, training, records=sample if training is not None else None)
-    if linker.model_ is None:
-        # Without training, m and u are estimated by EM once, on the file's first records, and then
-        # kept: every chunk (and every Dask worker) is scored with the same weights.
-        linker.link(sample, rejects=Rejects(), source=args.file)
+    # Without training, m and u are estimated by EM once, on the file's first records, and then kept:
+    # every chunk (and every Dask worker) is scored with the same weights.
+    linker.fit(index, training, records=sample, records_source=str(args.file))
     # the register and training by content: an index rebuilt in place never resumes stale chunks
     options = run_options("link", {"register": args.register, "training": args.training}, fields=args.fields,
                           register_fields=args.register_fields, id_col=args.id_col, threshold=args.threshold,

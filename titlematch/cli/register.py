@@ -29,7 +29,7 @@ def run(args) -> int:
     summary = Summary("register", args.quiet)
     rejects = Rejects()
     frame = read_table(args.file, required=[args.id_col], encoding=args.encoding, rejects=rejects)
-    index = RegisterIndex(_fields(args), args.id_col).build(frame, source=args.file)
+    index = RegisterIndex(_fields(args), args.id_col).fit(frame, source=args.file)
     index.save(args.out)
     summary.set(rows_in=len(frame) + len(rejects.rows()), indexed=len(index), rejected=len(rejects.rows()))
     if len(rejects):

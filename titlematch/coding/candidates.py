@@ -202,7 +202,7 @@ class TitleIndex:
                 "random_state": self.random_state}
 
     @classmethod
-    def restore(cls, dictionary: TitleDictionary, tables: dict, arrays: dict, params: dict) -> "TitleIndex":
+    def _restore(cls, dictionary: TitleDictionary, tables: dict, arrays: dict, params: dict) -> "TitleIndex":
         self = cls(**params)
         entries = dictionary.entries
         self.keys_ = np.array(sorted(entries["key"].unique()), dtype=object)

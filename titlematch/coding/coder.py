@@ -19,7 +19,7 @@ from ..io import ROW_COLUMN
 from ..io.artefact import load_artefact
 from ..io.columns import add_outputs
 from .candidates import TitleIndex
-from .dictionary import KIND, TitleDictionary
+from .dictionary import ARTEFACT_KIND, TitleDictionary
 from .features import FEATURES, ContextTables, candidate_features
 from ..normalize.title import normalize_titles
 
@@ -94,8 +94,7 @@ class TitleCoder(BaseEstimator):
         if y is not None:
             records["code"] = np.asarray(y, dtype=object)
         records.attrs = dict(frame.attrs)
-        dictionary = TitleDictionary.build(records, classification, half_life=self.half_life,
-                                           code_level=self.code_level)
+        dictionary = TitleDictionary(half_life=self.half_life, code_level=self.code_level).fit(records, classification)
         return self.fit_dictionary(dictionary)
 
     def fit_dictionary(self, dictionary: TitleDictionary) -> "TitleCoder":
@@ -124,12 +123,12 @@ class TitleCoder(BaseEstimator):
 
     @classmethod
     def load(cls, directory: str | os.PathLike) -> "TitleCoder":
-        art = load_artefact(directory, KIND)
+        art = load_artefact(directory, ARTEFACT_KIND)
         dictionary = TitleDictionary._from_artefact(art)
         self = cls(**art.meta.get("coder", {}))
         self.dictionary_ = dictionary
         if "index" in art.meta:
-            self.index_ = TitleIndex.restore(dictionary, art.tables, art.arrays, art.meta["index"])
+            self.index_ = TitleIndex._restore(dictionary, art.tables, art.arrays, art.meta["index"])
         else:  # a dictionary saved on its own: build the index now
             self.index_ = TitleIndex(self.n_neighbours, self.classifier_top, random_state=self.random_state).fit(dictionary)
         self._prepare()

@@ -29,7 +29,7 @@ from .codes import SOC_PATTERN, to_soc_2018
 from ..io import ROW_COLUMN, InputError, Rejects, file_sha256, read_table, require_columns
 from ..normalize.title import normalize_titles
 
-KIND = "title-dictionary"
+ARTEFACT_KIND = "title-dictionary"
 UNDATED = -1  # year of official titles and records without a year
 _CONTEXT_STOP = frozenset("a an and the of for in at on to with by or co inc llc dept department unit".split())
 _TOKEN = re.compile(r"naics:\d+|[a-z0-9]+")  # already-made NAICS tokens survive a second pass
@@ -79,7 +79,7 @@ class TitleDictionary:
     --------
     >>> import pandas as pd
     >>> past = pd.DataFrame({"title": ["RN", "Registered Nurse"], "code": ["29-1141"] * 2, "year": [2023, 2024]})
-    >>> d = TitleDictionary.build(past)
+    >>> d = TitleDictionary().fit(past)
     >>> d.lookup("registered nurse").iloc[0]["code"]
     '29-1141'
     """
@@ -103,17 +103,16 @@ class TitleDictionary:
         self._derived: dict = {}
 
     # ------------------------------------------------------------------ building
-    @classmethod
-    def build(cls, records: pd.DataFrame | list, classification: pd.DataFrame | None = None, *,
-              half_life: float = 3.0, code_pattern: str = SOC_PATTERN, code_level: str = "as-is",
-              source: str = "past records", official_weight: int = 1) -> "TitleDictionary":
-        """Build a dictionary from coded records (a DataFrame or a list of DataFrames).
+    def fit(self, records: pd.DataFrame | list, classification: pd.DataFrame | None = None, *,
+            source: str = "past records", official_weight: int = 1) -> "TitleDictionary":
+        """Build from coded records (a DataFrame or a list of DataFrames); returns self.
 
         Records need ``title`` and ``code``; ``context`` and ``year`` are optional. Rows with an
         empty title, an invalid code, a code outside ``classification`` or an unparseable year go
         to ``rejects`` with their reason; the provenance counts rows in = kept + rejected.
         """
-        self = cls(half_life=half_life, code_pattern=code_pattern, code_level=code_level)
+        fresh = type(self)(half_life=self.half_life, code_pattern=self.code_pattern, code_level=self.code_level)
+        self.__dict__.update(fresh.__dict__)  # refitting starts from nothing
         if classification is not None:
             self._set_classification(classification, official_weight)
         frames = records if isinstance(records, list) else [records]
@@ -129,7 +128,8 @@ class TitleDictionary:
         classification = None
         if classification_path is not None:
             classification = read_table(classification_path, required=("code", "title"))
-        return cls.build(frames, classification, **options)
+        settings = {k: options.pop(k) for k in ("half_life", "code_pattern", "code_level") if k in options}
+        return cls(**settings).fit(frames, classification, **options)
 
     def _set_classification(self, classification: pd.DataFrame, official_weight: int) -> None:
         require_columns(classification, ("code", "title"), classification.attrs.get("source_file", "classification"))
@@ -334,13 +334,13 @@ class TitleDictionary:
              arrays: dict | None = None, extra_meta: dict | None = None) -> Path:
         """Save as Parquet tables + checksummed manifest; ``rejects.csv`` beside them."""
         meta = self.meta() | (extra_meta or {})
-        save_artefact(directory, KIND, self.tables() | (extra_tables or {}), arrays=arrays, meta=meta)
+        save_artefact(directory, ARTEFACT_KIND, self.tables() | (extra_tables or {}), arrays=arrays, meta=meta)
         self.rejects.write(Path(directory) / "rejects.csv")
         return Path(directory)
 
     @classmethod
     def load(cls, directory: str | os.PathLike) -> "TitleDictionary":
-        return cls._from_artefact(load_artefact(directory, KIND))
+        return cls._from_artefact(load_artefact(directory, ARTEFACT_KIND))
 
     @classmethod
     def _from_artefact(cls, art) -> "TitleDictionary":

@@ -31,7 +31,7 @@ from threadpoolctl import threadpool_limits
 from ..io.artefact import load_artefact, save_artefact
 from ..coding.features import FEATURES
 
-KIND = "confidence-model"
+ARTEFACT_KIND = "confidence-model"
 ECM_RULES = {  # binarized features for the unsupervised start: name -> (feature, threshold)
     "exact": ("exact", 0.5), "similar": ("sim_char", 0.85), "majority": ("share", 0.8),
     "context": ("ctx_share", 0.5), "classifier": ("clf_rank", 1.5), "support": ("support", 0.6),
@@ -310,12 +310,12 @@ class ConfidenceModel(BaseEstimator):
         meta = {"params": self.get_params() | {"models": list(self.models)}, "base_model": self.base_name_,
                 "features": FEATURES, "calibration": {k: v["method"] for k, v in self.calibration_.items()}, "threshold": self.threshold_,
                 "cv_log_loss": self.cv_log_loss_, "label_source": self.source_, "report": report or {}}
-        save_artefact(directory, KIND, tables or {}, arrays=arrays, meta=meta)
+        save_artefact(directory, ARTEFACT_KIND, tables or {}, arrays=arrays, meta=meta)
         return Path(directory)
 
     @classmethod
     def load(cls, directory: str | os.PathLike) -> "ConfidenceModel":
-        art = load_artefact(directory, KIND)
+        art = load_artefact(directory, ARTEFACT_KIND)
         meta = art.meta
         if meta.get("features") != FEATURES:
             raise ValueError(f"{directory}: the model was trained on other features; re-run titlematch calibrate")

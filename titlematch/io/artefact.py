@@ -38,8 +38,9 @@ class Artefact:
 
 
 def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.DataFrame], *,
-                  arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> dict:
-    """Write an artefact to ``directory`` atomically (built beside it, then renamed into place)."""
+                  arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> Path:
+    """Write an artefact to ``directory`` atomically (built beside it, then renamed into place); returns
+    the directory (its manifest: :func:`read_manifest`)."""
     directory = Path(directory)
     directory.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{directory.name}.", dir=directory.parent))
@@ -70,7 +71,7 @@ def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.
     finally:
         if staging.exists():
             shutil.rmtree(staging, ignore_errors=True)
-    return manifest
+    return directory
 
 
 def read_manifest(directory: str | os.PathLike) -> dict:

@@ -11,8 +11,8 @@ candidates' odds), and two good candidates leave neither confident (a referral).
 
 Example
 -------
->>> linker = EstablishmentLinker().fit(register_frame)        # doctest: +SKIP
->>> linked = linker.link(new_records)                          # doctest: +SKIP
+>>> linker = EstablishmentLinker().fit(register_frame, records=new_records)   # doctest: +SKIP
+>>> linked = linker.link(new_records)                                         # doctest: +SKIP
 >>> linked[["record_id", "register_id", "confidence", "decision", "explanation"]]  # doctest: +SKIP
 """
 from __future__ import annotations
@@ -28,6 +28,7 @@ import pandas as pd
 from recordlinkage import ECMClassifier
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
+from sklearn.base import BaseEstimator
 from sklearn.linear_model import LogisticRegression
 
 from ..io.artefact import ArtefactError, load_artefact, save_artefact
@@ -40,7 +41,7 @@ from .register import Field, RegisterIndex, check_fields, resolve_fields
 log = logging.getLogger(__name__)
 
 DECISIONS = ("accept", "refer", "no-match")
-MODEL_KIND = "establishment-linker"
+ARTEFACT_KIND = "establishment-linker"
 _RULE_TYPES = {"KeyRule": KeyRule, "TokenRule": TokenRule, "NeighbourRule": NeighbourRule}
 OUTPUT_COLUMNS = ["register_id", "confidence", "decision", "register_name", "register_address",
                   "register_id_2", "confidence_2", "explanation"]
@@ -247,7 +248,7 @@ def _greedy_one_to_one(new: np.ndarray, register: np.ndarray, confidence: np.nda
 
 # --------------------------------------------------------------------------- the linker
 
-class EstablishmentLinker:
+class EstablishmentLinker(BaseEstimator):
     """Link records to a register with blocking, comparisons and Fellegi–Sunter or a supervised model.
 
     Parameters
@@ -282,9 +283,9 @@ class EstablishmentLinker:
 
     Attributes
     ----------
-    index_ : RegisterIndex; model_ : FellegiSunterModel or SupervisedModel (after fit or the
-    first link); rejects_ : Rejects of the last ``link``; blocking_ : per-rule pair counts;
-    pairs_ : the last batch's candidate pairs (row positions ``new``, ``register``) with ``confidence``.
+    index_ : RegisterIndex; rules_ : blocking rules; model_ : FellegiSunterModel or
+    SupervisedModel. Only ``fit`` sets them: ``link`` changes nothing on the linker (its candidate
+    pairs and blocking counts come from ``candidate_pairs``; refused records go to ``rejects=``).
     """
 
     def __init__(self, fields=None, *, id_column: str = "register_id", record_id: str | None = None,
@@ -314,7 +315,8 @@ class EstablishmentLinker:
                              f"({self.threshold}) <= 1")
 
     def fit(self, register: pd.DataFrame | RegisterIndex, training: pd.DataFrame | None = None, *,
-            records: pd.DataFrame | None = None, source: str = "<register>") -> "EstablishmentLinker":
+            records: pd.DataFrame | None = None, source: str = "<register>",
+            records_source: str = "<records>") -> "EstablishmentLinker":
         """Index the register and learn the classifier.
 
         Parameters
@@ -323,20 +325,23 @@ class EstablishmentLinker:
         training : optional labelled records: the field columns plus the register id of each
             (blank = known not on the register). With only a record id and a register id, the
             fields are taken from ``records`` by record id. Gives a supervised model.
-        records : records to estimate m/u on by EM when there is no training (default: the
-            first batch passed to ``link``).
+        records : without training, the records whose candidate pairs m and u are estimated on by EM
+            (at most ``em_records`` of them are used); required then. With training holding only
+            record ids, the records those ids refer to.
         """
         self._validate()
+        if training is None and records is None:
+            raise ValueError("without training pairs, give records= (records to link, or a sample of them): "
+                             "m and u are estimated by EM on their candidate pairs")
         if isinstance(register, RegisterIndex):
             self.index_ = register
         else:
-            self.index_ = RegisterIndex(self.fields, self.id_column).build(register, source=source)
+            self.index_ = RegisterIndex(self.fields, self.id_column).fit(register, source=source)
         self.rules_ = list(self.rules) if self.rules is not None else default_rules(self.index_.fields_, k=self.k)
-        self.model_ = None
         if training is not None:
             self.model_ = self._fit_supervised(training, records)
-        elif records is not None:
-            self.model_ = self._fit_unsupervised(records)
+        else:
+            self.model_ = self._fit_unsupervised(records, records_source)
         return self
 
     def _record_ids(self, frame: pd.DataFrame) -> pd.Series:
@@ -355,9 +360,9 @@ class EstablishmentLinker:
         features = compare(pairs, prepared, self.index_, new_chars=chars, new_words=words, workers=self.workers)
         return prepared, chars, words, pairs, features
 
-    def _fit_unsupervised(self, records: pd.DataFrame) -> FellegiSunterModel:
-        records = self._valid_records(records, Rejects(), "<records>")
-        _, _, _, pairs, features = self._score_input(records)
+    def _fit_unsupervised(self, records: pd.DataFrame, source: str = "<records>") -> FellegiSunterModel:
+        records = self._valid_records(records, Rejects(), source).reset_index(drop=True)
+        _, _, _, pairs, features = self._score_input(records, source)
         return self._fit_em(pairs, features, self.index_.fields_)
 
     def _fit_em(self, pairs: pd.DataFrame, features: pd.DataFrame, fields, exclusive: bool = True):
@@ -436,27 +441,43 @@ class EstablishmentLinker:
 
     def link(self, records: pd.DataFrame, *, rejects: Rejects | None = None,
              source: str = "<records>") -> pd.DataFrame:
-        """Link a batch: every input column unchanged plus ``OUTPUT_COLUMNS`` (named ``output_prefix +
-        name``; one that would overwrite an input column raises ``ColumnClash``). Records with an empty
-        name are set aside in ``rejects`` / ``self.rejects_``.
+        """Link a batch: a new frame of every input column unchanged plus ``OUTPUT_COLUMNS`` (named
+        ``output_prefix + name``; one that would overwrite an input column raises ``ColumnClash``).
+        Records with an empty name are left out and noted in ``rejects`` (logged when not given).
 
-        A pure function of the batch once the model is fitted, so a runner can call it per chunk.
+        Changes nothing on the linker, so a runner can call it on any chunk, anywhere, in any order.
         """
-        if not hasattr(self, "index_"):
-            raise RuntimeError("call fit(register) before link(records)")
+        result, _ = self._link(records, rejects, source)
+        return result
+
+    def candidate_pairs(self, records: pd.DataFrame, *, source: str = "<records>") -> pd.DataFrame:
+        """The batch's candidate pairs as ``link`` scores them: ``new`` (row position among the records
+        ``link`` keeps), ``register`` (row position in the register) and ``confidence``; the pairs each
+        blocking rule found are in ``.attrs["rules"]``."""
+        _, pairs = self._link(records, Rejects(), source)
+        return pairs
+
+    def _link(self, records: pd.DataFrame, rejects: Rejects | None, source: str) -> tuple[pd.DataFrame, pd.DataFrame]:
+        if not hasattr(self, "model_"):
+            raise RuntimeError("fit the linker (fit(register, records=...) or fit(register, training)) "
+                               "before link(records)")
         self._validate()
-        self.rejects_ = rejects if rejects is not None else Rejects()
-        valid = self._valid_records(records, self.rejects_, source).reset_index(drop=True)
+        collector = rejects if rejects is not None else Rejects()
+        valid = self._valid_records(records, collector, source).reset_index(drop=True)
+        if rejects is None and len(collector):
+            log.warning("%s: %d record(s) with an empty name left out; pass rejects= to keep them",
+                        source, len(collector))
         if not len(valid):
             empty = pd.DataFrame({c: pd.Series(dtype=float if c.startswith("confidence") else object)
                                   for c in OUTPUT_COLUMNS})
-            return add_outputs(valid, empty, prefix=self.output_prefix, source=source)
+            pairs = pd.DataFrame({"new": pd.Series(dtype="int64"), "register": pd.Series(dtype="int64"),
+                                  "confidence": pd.Series(dtype=float)})
+            return add_outputs(valid, empty, prefix=self.output_prefix, source=source), pairs
         _, _, _, pairs, features = self._score_input(valid, source)
-        self.blocking_ = pairs.attrs.get("rules", {})
-        if self.model_ is None:  # unsupervised and not yet fitted: EM on this batch's own pairs
-            self.model_ = self._fit_em(pairs, features, self.index_.fields_)
-        outputs = self._decide(pd.DataFrame(index=valid.index), pairs, features)
-        return add_outputs(valid, outputs, prefix=self.output_prefix, source=source)
+        outputs, confidence = self._decide(pd.DataFrame(index=valid.index), pairs, features)
+        scored = pairs.assign(confidence=confidence)
+        scored.attrs["rules"] = pairs.attrs.get("rules", {})
+        return add_outputs(valid, outputs, prefix=self.output_prefix, source=source), scored
 
     def _pair_scores(self, features: pd.DataFrame) -> tuple[np.ndarray, pd.DataFrame]:
         if isinstance(self.model_, FellegiSunterModel):
@@ -470,7 +491,6 @@ class EstablishmentLinker:
         register = pairs["register"].to_numpy()
         log_odds, weights = self._pair_scores(features)
         confidence = exclusive_confidence(new, log_odds)
-        self.pairs_ = pairs.assign(confidence=confidence)
         order = np.lexsort((-confidence, new))
         rank = np.arange(len(order)) - np.searchsorted(new[order], new[order], side="left")
         best = np.full(n, -1)
@@ -506,17 +526,17 @@ class EstablishmentLinker:
         if self.one_to_one:
             text[lost] = "register entry taken by a more confident record in this batch"
         result["explanation"] = np.where(has, text, "no candidate found by blocking")
-        return result
+        return result, confidence
 
     # ---------------------------------------------------------------- saving
     _PARAMS = ("id_column", "record_id", "threshold", "refer_threshold", "one_to_one", "k", "max_block",
                "em_candidates", "exclusive_em", "em_records", "workers", "output_prefix")
 
-    def save(self, directory: str | os.PathLike, *, index_directory: str | os.PathLike | None = None) -> dict:
+    def save(self, directory: str | os.PathLike, *, index_directory: str | os.PathLike | None = None) -> Path:
         """Save the fitted model and settings as an artefact (no pickle); with ``index_directory``
         the register index is saved there too and found again by ``load``."""
-        if not hasattr(self, "index_") or self.model_ is None:
-            raise RuntimeError("fit the linker (and, without training, link one batch) before saving it")
+        if not hasattr(self, "model_"):
+            raise RuntimeError("fit the linker before saving it")
         meta = {"params": {p: getattr(self, p) for p in self._PARAMS},
                 "rules": [{"type": type(r).__name__, **asdict(r)} for r in self.rules_]}
         if index_directory is not None:
@@ -533,14 +553,14 @@ class EstablishmentLinker:
             terms = model.columns_ + [f"missing:{c}" for c in model.indicators_]
             tables = {"coefficients": pd.DataFrame({"term": terms, "coef": model.coef_, "baseline": model.baseline_})}
             arrays = {}
-        return save_artefact(directory, MODEL_KIND, tables, arrays=arrays, meta=meta)
+        return save_artefact(directory, ARTEFACT_KIND, tables, arrays=arrays, meta=meta)
 
     @classmethod
     def load(cls, directory: str | os.PathLike, index: RegisterIndex | str | os.PathLike | None = None
              ) -> "EstablishmentLinker":
         """Load a linker saved by ``save``; ``index`` is a RegisterIndex or its directory
         (default: the one saved beside the model)."""
-        art = load_artefact(directory, MODEL_KIND)
+        art = load_artefact(directory, ARTEFACT_KIND)
         rules = [_RULE_TYPES[spec.pop("type")](**{k: tuple(v) if isinstance(v, list) else v
                                                    for k, v in spec.items()}) for spec in art.meta["rules"]]
         linker = cls(rules=rules, **art.meta["params"])
@@ -569,36 +589,34 @@ class EstablishmentLinker:
         return linker
 
     # ---------------------------------------------------------------- deduplication
-    def dedupe(self, records: pd.DataFrame, *, rejects: Rejects | None = None,
-               source: str = "<records>") -> pd.DataFrame:
-        """Find duplicates within ``records``: every input column plus ``cluster_id``,
+    def dedupe(self, records: pd.DataFrame, *, rejects: Rejects | None = None, source: str = "<records>",
+               return_pairs: bool = False):
+        """Find duplicates within ``records``: a new frame of every input column plus ``cluster_id``,
         ``cluster_size`` and ``duplicate_confidence`` (the best link into its group).
 
         Pairs whose match probability reaches ``threshold`` are joined; groups are the
         connected components. Uses the same fields, with a Fellegi–Sunter model fitted on
-        the batch's own candidate pairs. ``pairs_`` and ``pair_probability_`` keep the pairs.
+        the batch's own candidate pairs (nothing is kept on the linker). With ``return_pairs``
+        also the candidate pairs (``new``, ``register``: row positions) with their ``probability``.
         """
         self._validate()
-        self.rejects_ = rejects if rejects is not None else Rejects()
+        rejects = rejects if rejects is not None else Rejects()
         fields = [replace(f, register_column=f.column) for f in resolve_fields(self.fields)]
-        valid = self._valid_records(records, self.rejects_, source, fields).reset_index(drop=True)
+        valid = self._valid_records(records, rejects, source, fields).reset_index(drop=True)
         n = len(valid)
         add_outputs(valid.head(0), pd.DataFrame(columns=DEDUPE_COLUMNS), prefix=self.output_prefix,
                     source=source)  # refuse a clash before the work, not after
         dedupe_id = unused_name(valid.columns, "_dedupe_id")
-        index = RegisterIndex(fields, dedupe_id).build(valid.assign(**{dedupe_id: np.arange(n).astype(str)}),
+        index = RegisterIndex(fields, dedupe_id).fit(valid.assign(**{dedupe_id: np.arange(n).astype(str)}),
                                                        source=source)
         rules = list(self.rules) if self.rules is not None else default_rules(index.fields_, k=self.k)
         pairs = candidate_pairs(index.prepared_, index, rules, new_chars=index.char_matrix_,
                                 new_words=index.word_matrix_, max_block=self.max_block, self_join=True)
-        self.blocking_ = pairs.attrs.get("rules", {})
         features = compare(pairs, index.prepared_, index, new_chars=index.char_matrix_,
                            new_words=index.word_matrix_, workers=self.workers)
         levels = agreement_levels(features, index.fields_)
         # A record may have several duplicates: no rivalry between its candidates here.
-        self.dedupe_model_ = self._fit_em(pairs, features, index.fields_, exclusive=False)
-        probability = self.dedupe_model_.predict_proba(levels)
-        self.pairs_, self.pair_probability_ = pairs, probability
+        probability = self._fit_em(pairs, features, index.fields_, exclusive=False).predict_proba(levels)
         linked = probability >= self.threshold
         a, b = pairs["new"].to_numpy()[linked], pairs["register"].to_numpy()[linked]
         _, labels = connected_components(coo_matrix((np.ones(len(a)), (a, b)), shape=(n, n)), directed=False)
@@ -609,4 +627,5 @@ class EstablishmentLinker:
         result = pd.DataFrame({"cluster_id": [f"g{label:0{width}d}" for label in labels],
                                "cluster_size": np.bincount(labels, minlength=1)[labels] if n else [],
                                "duplicate_confidence": np.round(best, 4)})
-        return add_outputs(valid, result, prefix=self.output_prefix, source=source)
+        result = add_outputs(valid, result, prefix=self.output_prefix, source=source)
+        return (result, pairs.assign(probability=probability)) if return_pairs else result

@@ -8,7 +8,7 @@ similarity) and the result is saved as a checksummed artefact of Parquet tables 
 
 Example
 -------
->>> index = RegisterIndex().build(register_frame)          # doctest: +SKIP
+>>> index = RegisterIndex().fit(register_frame)          # doctest: +SKIP
 >>> index.save("register_index")                           # doctest: +SKIP
 >>> index = RegisterIndex.load("register_index")           # doctest: +SKIP
 """
@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import logging
 import os
+from pathlib import Path
 import re
 from dataclasses import asdict, dataclass
 from typing import Iterable, Mapping, Sequence
@@ -303,7 +304,7 @@ class RegisterIndex:
     id_column : str
         The register's identifier column; ids must be present and unique.
 
-    Attributes (after ``build`` or ``load``)
+    Attributes (after ``fit`` or ``load``)
     ----------
     fields_ : list of Field actually used
     ids_ : ndarray of register ids (strings)
@@ -317,7 +318,7 @@ class RegisterIndex:
         self.fields = fields
         self.id_column = id_column
 
-    def build(self, register: pd.DataFrame, *, source: str = "<register>") -> "RegisterIndex":
+    def fit(self, register: pd.DataFrame, *, source: str = "<register>") -> "RegisterIndex":
         """Validate and prepare ``register``; returns self."""
         if not isinstance(register, pd.DataFrame):
             raise TypeError(f"register must be a pandas DataFrame, got {type(register).__name__}")
@@ -381,7 +382,7 @@ class RegisterIndex:
         values = text.fillna("").astype(str)
         return (self.char_vectorizer_.transform(values).tocsr(), self.word_vectorizer_.transform(values).tocsr())
 
-    def save(self, directory: str | os.PathLike) -> dict:
+    def save(self, directory: str | os.PathLike) -> Path:
         """Save as a checksummed artefact (Parquet + .npy, no pickle)."""
         register = pd.concat([pd.DataFrame({"register_id": self.ids_}), self.display_.reset_index(drop=True)],
                              axis=1)

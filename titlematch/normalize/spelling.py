@@ -24,7 +24,7 @@ from rapidfuzz.distance import DamerauLevenshtein
 from ..io.artefact import load_artefact, save_artefact
 from .title_lexicon import title_lexicon
 
-KIND = "spelling_corrector"
+ARTEFACT_KIND = "spelling_corrector"
 PREFIX_LENGTH = 7  # deletes are taken from this many leading letters only
 AMBIGUITY_RATIO = 3.0  # the best candidate must be this many times as frequent as the runner-up
 
@@ -214,12 +214,12 @@ class SpellingCorrector:
         """Save the vocabulary and parameters (the index is rebuilt on load)."""
         self._check_fitted()
         table = pd.DataFrame({"token": list(self.vocabulary_), "count": list(self.vocabulary_.values())})
-        save_artefact(directory, KIND, {"vocabulary": table}, meta=self.get_params())
+        save_artefact(directory, ARTEFACT_KIND, {"vocabulary": table}, meta=self.get_params())
         return Path(directory)
 
     @classmethod
     def load(cls, directory: str | os.PathLike) -> "SpellingCorrector":
-        art = load_artefact(directory, KIND)
+        art = load_artefact(directory, ARTEFACT_KIND)
         table = art.tables["vocabulary"]
         return cls(**art.meta).fit(dict(zip(table["token"].astype(str), table["count"].astype(int))))
 
