@@ -9,9 +9,10 @@ from sklearn.calibration import _sigmoid_calibration
 from sklearn.ensemble import HistGradientBoostingClassifier
 from sklearn.linear_model import LogisticRegression
 
+from titlematch.confidence.fellegi_sunter import FellegiSunterModel
 from titlematch.io.artefact import ArtefactError
 from titlematch.confidence.model import (ConfidenceModel, _evaluate_trees, _export_trees, apply_calibration, binarize,
-                                   fellegi_sunter_logit, fit_calibration, platt_scaling)
+                                   fit_calibration, platt_scaling)
 from titlematch.coding.features import FEATURES
 
 
@@ -133,6 +134,8 @@ def test_candidate_confidences_of_a_record_never_sum_above_one():
 
 def test_fellegi_sunter_logit_worked_example():
     # Fellegi & Sunter (1969): agreement weight log(m/u), disagreement log((1-m)/(1-u)); worked by hand.
-    params = {"m": np.array([0.9, 0.8]), "u": np.array([0.1, 0.2]), "prior": np.array([0.5])}
-    logit = fellegi_sunter_logit(np.array([[1, 0]]), params)
+    # The same implementation as the linker's (titlematch.confidence.fellegi_sunter), log odds in nats.
+    model = FellegiSunterModel()
+    model.m_, model.u_, model.prior_ = pd.Series({"a": 0.9, "b": 0.8}), pd.Series({"a": 0.1, "b": 0.2}), 0.5
+    logit = model.log_odds(pd.DataFrame({"a": [1], "b": [0]}))
     assert logit[0] == pytest.approx(np.log(9) + np.log(0.25))

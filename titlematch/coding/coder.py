@@ -225,10 +225,15 @@ class TitleCoder(BaseEstimator):
         return float(np.mean(self.predict(X) == np.asarray(y, dtype=object)))
 
 
+def best_first(cands: pd.DataFrame, group: str, by: str) -> pd.DataFrame:
+    """The one "top candidate" rule: each ``group``'s candidates by ``by`` (confidence, or score without
+    a model), then score, highest first, ties to the lower code; ``pos`` numbers them from 0 (the top)."""
+    ranked = cands.sort_values([group, by, "score", "code"], ascending=[True, False, False, True])
+    return ranked.assign(pos=ranked.groupby(group).cumcount())
+
+
 def _top_three(cands: pd.DataFrame, n_units: int, titles: dict, with_confidence: bool) -> pd.DataFrame:
-    order = "confidence" if with_confidence else "score"
-    ranked = cands.sort_values(["unit", order, "score", "code"], ascending=[True, False, False, True])
-    ranked = ranked.assign(pos=ranked.groupby("unit").cumcount())
+    ranked = best_first(cands, "unit", "confidence" if with_confidence else "score")
     out = pd.DataFrame(index=range(n_units))
     for pos, suffix in ((0, ""), (1, "_2"), (2, "_3")):
         layer = ranked[ranked["pos"] == pos].set_index("unit")

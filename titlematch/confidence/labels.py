@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..coding.coder import TitleCoder
+from ..coding.coder import TitleCoder, best_first
 from ..coding.dictionary import UNDATED, TitleDictionary
 
 
@@ -57,8 +57,8 @@ def gold_labels(coder: TitleCoder, gold: pd.DataFrame) -> pd.DataFrame:
 
 def top_candidates(feats: pd.DataFrame, n_records: int, by: str = "confidence") -> pd.DataFrame:
     """The best candidate per record (records without candidates get an empty code, confidence 0)."""
-    ranked = feats.sort_values(["record", by, "score", "code"], ascending=[True, False, False, True])
-    top = ranked.drop_duplicates("record").set_index("record")
+    ranked = best_first(feats, "record", by)  # the coder's own rule, so the threshold is chosen as applied
+    top = ranked[ranked["pos"] == 0].set_index("record")
     out = pd.DataFrame(index=pd.RangeIndex(n_records, name="record"))
     out["code"] = top["code"].reindex(out.index).fillna("")
     out[by] = top[by].reindex(out.index).fillna(0.0)

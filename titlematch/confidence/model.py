@@ -30,6 +30,8 @@ from threadpoolctl import threadpool_limits
 
 from ..io.artefact import load_artefact, save_artefact
 from ..coding.features import FEATURES
+from .fellegi_sunter import CLIP, FellegiSunterModel
+from .routing import route
 
 ARTEFACT_KIND = "confidence-model"
 ECM_RULES = {  # binarized features for the unsupervised start: name -> (feature, threshold)
@@ -237,18 +239,14 @@ class ConfidenceModel(BaseEstimator):
         return self
 
     def fit_unsupervised(self, X: pd.DataFrame) -> "ConfidenceModel":
-        """Fellegi–Sunter posterior with m/u probabilities estimated by EM (recordlinkage's ECM)."""
-        import recordlinkage
-
-        binary = binarize(X)
-        binary.index = pd.MultiIndex.from_arrays([np.arange(len(binary)), np.arange(len(binary))])
-        ecm = recordlinkage.ECMClassifier(binarize=None)
-        ecm.fit(binary)
+        """Fellegi–Sunter posterior with m/u probabilities estimated by EM (``confidence.fellegi_sunter``,
+        the linker's own implementation; EM only, m not capped below 1 - CLIP)."""
+        model = FellegiSunterModel(refinements=0, min_pairs=0, max_m=1 - CLIP).fit(binarize(X))
         names = list(ECM_RULES)
         self.base_name_ = "fellegi_sunter"
-        self.base_arrays_ = {"m": np.array([ecm.m_probs[n].get(1, 1e-6) for n in names]),
-                             "u": np.array([ecm.u_probs[n].get(1, 1e-6) for n in names]),
-                             "prior": np.array([ecm.p])}
+        self.base_arrays_ = {"m": model.m_.reindex(names).to_numpy(dtype=float),
+                             "u": model.u_.reindex(names).to_numpy(dtype=float),
+                             "prior": np.array([model.prior_])}
         self.cv_log_loss_ = {}
         identity = {"method": "identity", "x": np.array([]), "y": np.array([])}
         self.calibration_ = {"top": identity, "rest": identity}
@@ -258,7 +256,7 @@ class ConfidenceModel(BaseEstimator):
 
     def _raw(self, X: pd.DataFrame) -> np.ndarray:
         if self.base_name_ == "fellegi_sunter":
-            return fellegi_sunter_logit(binarize(X).to_numpy(float), self.base_arrays_)
+            return _fellegi_sunter(self.base_arrays_).log_odds(binarize(X))
         model = _MODELS[self.base_name_]()
         model.arrays = self.base_arrays_
         return model.raw(self._matrix(X))
@@ -297,10 +295,9 @@ class ConfidenceModel(BaseEstimator):
         return out
 
     def route(self, confidence: np.ndarray) -> np.ndarray:
-        conf = np.asarray(confidence, dtype=float)
-        return np.where(np.nan_to_num(conf, nan=-1.0) >= self.threshold_, "accept", "refer").astype(object)
+        """Accept at ``threshold_`` or above, else refer (``titlematch.confidence.routing.route``)."""
+        return route(confidence, self.threshold_)
 
-    # ---------------------------------------------------------------- persistence
     def save(self, directory: str | os.PathLike, *, report: dict | None = None,
              tables: dict[str, pd.DataFrame] | None = None) -> Path:
         arrays = {f"base_{k}": v for k, v in self.base_arrays_.items()}
@@ -357,10 +354,11 @@ def binarize(X: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(out).astype(int)
 
 
-def fellegi_sunter_logit(binary: np.ndarray, params: dict) -> np.ndarray:
-    """log odds of a match: log(p/(1-p)) + sum of log2-free natural weights log(m/u) or log((1-m)/(1-u))."""
-    m = np.clip(params["m"], 1e-6, 1 - 1e-6)
-    u = np.clip(params["u"], 1e-6, 1 - 1e-6)
-    p = float(np.clip(params["prior"][0], 1e-6, 1 - 1e-6))
-    weights = binary * np.log(m / u) + (1 - binary) * np.log((1 - m) / (1 - u))
-    return np.log(p / (1 - p)) + weights.sum(axis=1)
+def _fellegi_sunter(arrays: dict) -> FellegiSunterModel:
+    """The saved m, u and prior (over ``ECM_RULES``) as the shared Fellegi–Sunter model."""
+    model = FellegiSunterModel(max_m=1 - CLIP)
+    model.m_ = pd.Series(np.asarray(arrays["m"], dtype=float), index=list(ECM_RULES))
+    model.u_ = pd.Series(np.asarray(arrays["u"], dtype=float), index=list(ECM_RULES))
+    model.prior_ = float(np.asarray(arrays["prior"]).ravel()[0])
+    model._clip()
+    return model

@@ -77,6 +77,20 @@ class ThresholdChoice:
                 f"{self.manual_accuracy:.1%} (difference at least {self.lower_bound:+.2%} with {level} confidence).")
 
 
+def read_confidence(values) -> tuple[pd.Series, pd.Series]:
+    """The one reader of a confidence column as written in a coded file: ``(numbers, unreadable)``.
+
+    Numbers in [0, 1] are kept; a blank cell means no code was offered (NaN, referred); anything else
+    (text, a number outside [0, 1]) is NaN too and marked in ``unreadable``, for the caller to reject
+    or report.
+    """
+    series = pd.Series(values)
+    text = series.astype(object).where(series.notna(), "").astype(str).str.strip()
+    number = pd.to_numeric(text.where(text != ""), errors="coerce").astype(float)
+    unreadable = (text != "") & (number.isna() | (number < 0) | (number > 1))
+    return number.where(~unreadable), unreadable
+
+
 def _confidences(confidence, name: str = "confidence") -> np.ndarray:
     try:
         conf = np.asarray(pd.to_numeric(pd.Series(confidence), errors="raise"), dtype=float)
@@ -106,17 +120,27 @@ def _gold_inputs(confidence, machine_code, expert_code, manual_code):
     return conf, machine, expert, manual
 
 
-def route(confidence, threshold: float) -> np.ndarray:
-    """``"accept"`` where confidence >= threshold (exactly), else ``"refer"``; a missing confidence is referred.
+def route(confidence, threshold: float, refer_threshold: float | None = None) -> np.ndarray:
+    """The one accept / refer rule of the coder, the calibration, the evaluation and the linker.
+
+    ``"accept"`` where confidence >= ``threshold`` (exactly), else ``"refer"``; a missing confidence is
+    referred. With ``refer_threshold`` (the linker's lower bound) a confidence below it is ``"no-match"``.
 
     >>> route([0.5, 0.9, float("nan")], 0.9).tolist()
     ['refer', 'accept', 'refer']
+    >>> route([0.2, 0.5, 0.95], 0.9, refer_threshold=0.5).tolist()
+    ['no-match', 'refer', 'accept']
     """
     if threshold is None or np.isnan(float(threshold)):
         raise ValueError(f"threshold must be a number, got {threshold!r}")
     conf = _confidences(confidence)
     with np.errstate(invalid="ignore"):
-        return np.where(conf >= float(threshold), "accept", "refer").astype(object)
+        decision = np.where(conf >= float(threshold), "accept", "refer").astype(object)
+        if refer_threshold is not None:
+            if not float(refer_threshold) <= float(threshold):
+                raise ValueError(f"refer_threshold ({refer_threshold}) must not exceed threshold ({threshold})")
+            decision[~(conf >= float(refer_threshold))] = "no-match"
+    return decision
 
 
 def automation_curve(confidence, machine_code, expert_code, manual_code=None, *, grid_size: int = 100) -> pd.DataFrame:

@@ -32,6 +32,7 @@ import pandas as pd
 from scipy.spatial.distance import jensenshannon
 from scipy.stats import ks_2samp
 
+from ..confidence.routing import read_confidence, route
 from . import htmlpage
 from ..measures import plots
 from ..io import ROW_COLUMN, InputError, Rejects, write_table
@@ -224,7 +225,7 @@ def _row(measure, old, new, value, limit, meaning, *, drop: bool = False) -> dic
 
 def _automation(frame: pd.DataFrame, threshold: float | None) -> float | None:
     if threshold is not None and "confidence" in frame.columns and frame["confidence"].notna().any():
-        return float((frame["confidence"] >= threshold).mean())
+        return float((route(read_confidence(frame["confidence"])[0], threshold) == "accept").mean())
     if threshold is None and "decision" in frame.columns:
         return float((frame["decision"] == "accept").mean())
     return None
@@ -290,7 +291,8 @@ def measure_drift(old: pd.DataFrame, new: pd.DataFrame, *, vocabulary: Iterable[
     old_conf = new_conf = None
     if ("confidence" in old.columns and "confidence" in new.columns
             and old["confidence"].notna().any() and new["confidence"].notna().any()):
-        old_conf, new_conf = _finite(old["confidence"], "old"), _finite(new["confidence"], "new")
+        old_conf = _finite(read_confidence(old["confidence"])[0], "old")
+        new_conf = _finite(read_confidence(new["confidence"])[0], "new")
         rows.append(_row("confidence PSI (old deciles)", None, None, confidence_psi(old_conf, new_conf), limits.psi,
                          "shift in the spread of confidences"))
         stat, pvalue = ks_statistic(old_conf, new_conf)

@@ -26,7 +26,7 @@ from . import htmlpage
 from ..measures import metrics
 from ..measures import plots
 from ..io import ROW_COLUMN, InputError, Rejects, require_columns, write_table
-from ..confidence.routing import ThresholdChoice, choose_threshold
+from ..confidence.routing import ThresholdChoice, choose_threshold, read_confidence, route
 
 RECORD_ID = "record_id"
 DECISIONS = ("accept", "refer")
@@ -146,8 +146,7 @@ def _clean(joined: pd.DataFrame, coded_name: str, gold_name: str, rejects: Rejec
     keep &= expert != ""
     if "confidence" in joined.columns:
         text = _text(joined["confidence"])
-        number = pd.to_numeric(text.where(text != ""), errors="coerce")
-        bad = (text != "") & (number.isna() | (number < 0) | (number > 1))
+        number, bad = read_confidence(joined["confidence"])
         for row, value in zip(joined.loc[bad, "_row_coded"], text[bad]):
             rejects.add(coded_name, int(row), "confidence", "confidence is not a number in [0, 1]", value)
         keep &= ~bad
@@ -277,7 +276,7 @@ def _choice_rows(choice: ThresholdChoice, records: pd.DataFrame, n: int) -> list
             _measure("accuracy of accepted records at the threshold", choice.expected_accuracy,
                      int(round(choice.expected_share_automated * n)), None, "")]
     if choice.mix_accuracy == choice.mix_accuracy:
-        accepted = (records["confidence"] >= choice.threshold).to_numpy()
+        accepted = route(records["confidence"], choice.threshold) == "accept"
         mix = np.where(accepted, records["machine_code"], records["manual_code"])
         rows += [_measure("machine + coders accuracy at the threshold", choice.mix_accuracy, n),
                  _measure("machine + coders macro-F1 at the threshold",

@@ -15,7 +15,8 @@ import numpy as np
 import pandas as pd
 
 from ..coding.dictionary import TitleDictionary
-from ..io import ROW_COLUMN, InputError, Rejects, require_columns
+from ..io import ROW_COLUMN, Rejects, require_columns
+from ..confidence.routing import read_confidence
 from ..io.columns import add_outputs
 
 QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context",
@@ -63,8 +64,8 @@ def referral_queue(coded: pd.DataFrame, code_titles: dict | None = None, *, titl
     conf_col = "confidence" if "confidence" in work.columns else "score"
     if not len(work):
         return pd.DataFrame(columns=QUEUE_COLUMNS)
-    numeric = {c: pd.to_numeric(work[c], errors="coerce") for c in
-               (conf_col, f"{conf_col}_2", f"{conf_col}_3") if c in work.columns}
+    number = read_confidence if conf_col == "confidence" else (lambda v: (pd.to_numeric(v, errors="coerce"),))
+    numeric = {c: number(work[c])[0] for c in (conf_col, f"{conf_col}_2", f"{conf_col}_3") if c in work.columns}
     work = work.assign(**{c: v for c, v in numeric.items()})
     groups = work.groupby("title_normalized", sort=True)
     first = groups.first()
@@ -155,12 +156,12 @@ def disagreements(coded: pd.DataFrame, manual_col: str, *, min_confidence: float
     code, confidence = prefix + "code", prefix + "confidence"
     require_columns(coded, (manual_col, code, confidence), "coded file")
     manual = coded[manual_col].fillna("").astype(str).str.strip()
-    conf = pd.to_numeric(coded[confidence], errors="coerce").fillna(0)
+    conf = read_confidence(coded[confidence])[0].fillna(0)
     manual_conf = pd.Series(np.nan, index=coded.index)
     for suffix in ("_2", "_3"):
         if f"{code}{suffix}" in coded.columns:
             hit = coded[f"{code}{suffix}"].astype(str) == manual
-            manual_conf = manual_conf.where(~hit, pd.to_numeric(coded[f"{confidence}{suffix}"], errors="coerce"))
+            manual_conf = manual_conf.where(~hit, read_confidence(coded[f"{confidence}{suffix}"])[0])
     mask = (manual != "") & (coded[code].astype(str) != manual) & (conf >= min_confidence)
     out = add_outputs(coded[mask], pd.DataFrame({"manual_code_confidence": manual_conf[mask].to_numpy()}),
                       prefix=prefix, source="coded file")
