@@ -187,7 +187,7 @@ class TitleIndex:
             items = sorted(vec.vocabulary_.items(), key=lambda kv: kv[1])
             return pd.DataFrame({"term": [t for t, _ in items], "index": [i for _, i in items]})
         return {"index_char_vocabulary": vocab(self.char_vectorizer_),
-                "index_word_vocabulary": vocab(self.word_vectorizer_)}
+                "index_word_vocabulary": vocab(self.word_vectorizer_), **self.corrector_.tables("spelling_")}
 
     def arrays(self) -> dict[str, np.ndarray]:
         coef = self.classifier_coef_.tocsr()
@@ -195,14 +195,17 @@ class TitleIndex:
                 "classifier_idf": self.classifier_idf_, "classifier_coef_data": coef.data,
                 "classifier_coef_indices": coef.indices, "classifier_coef_indptr": coef.indptr,
                 "classifier_coef_shape": np.array(coef.shape, dtype=np.int64),
-                "classifier_intercept": self.classifier_intercept_, "classifier_classes": self.classifier_classes_}
+                "classifier_intercept": self.classifier_intercept_, "classifier_classes": self.classifier_classes_,
+                **self.corrector_.arrays("spelling_")}
 
     def params(self) -> dict:
         return {"n_neighbours": self.n_neighbours, "classifier_top": self.classifier_top,
                 "random_state": self.random_state}
 
     @classmethod
-    def _restore(cls, dictionary: TitleDictionary, tables: dict, arrays: dict, params: dict) -> "TitleIndex":
+    def _restore(cls, dictionary: TitleDictionary, tables: dict, arrays: dict, params: dict,
+                 spelling: dict | None = None) -> "TitleIndex":
+        """The index as saved by ``tables()``/``arrays()``; ``spelling`` is the corrector's parameters."""
         self = cls(**params)
         entries = dictionary.entries
         self.keys_ = np.array(sorted(entries["key"].unique()), dtype=object)
@@ -217,7 +220,10 @@ class TitleIndex:
                                                arrays["classifier_coef_indptr"]), shape=shape)
         self.classifier_intercept_ = arrays["classifier_intercept"]
         self.classifier_classes_ = arrays["classifier_classes"]
-        self.corrector_ = _corrector(dictionary)
+        if spelling is not None and "spelling_hashes" in arrays:  # saved with the dictionary: not rebuilt
+            self.corrector_ = SpellingCorrector.restore(tables, arrays, spelling, prefix="spelling_")
+        else:
+            self.corrector_ = _corrector(dictionary)
         return self
 
     # ---------------------------------------------------------------- searching

@@ -119,7 +119,8 @@ class TitleCoder(BaseEstimator):
     # ---------------------------------------------------------------- persistence
     def save(self, directory: str | os.PathLike) -> Path:
         return self.dictionary_.save(directory, extra_tables=self.index_.tables(), arrays=self.index_.arrays(),
-                                     extra_meta={"index": self.index_.params(), "coder": self.get_params()})
+                                     extra_meta={"index": self.index_.params(), "coder": self.get_params(),
+                                                 "spelling": self.index_.corrector_.get_params()})
 
     @classmethod
     def load(cls, directory: str | os.PathLike) -> "TitleCoder":
@@ -128,7 +129,8 @@ class TitleCoder(BaseEstimator):
         self = cls(**art.meta.get("coder", {}))
         self.dictionary_ = dictionary
         if "index" in art.meta:
-            self.index_ = TitleIndex._restore(dictionary, art.tables, art.arrays, art.meta["index"])
+            self.index_ = TitleIndex._restore(dictionary, art.tables, art.arrays, art.meta["index"],
+                                              spelling=art.meta.get("spelling"))
         else:  # a dictionary saved on its own: build the index now
             self.index_ = TitleIndex(self.n_neighbours, self.classifier_top, random_state=self.random_state).fit(dictionary)
         self._prepare()
@@ -137,31 +139,31 @@ class TitleCoder(BaseEstimator):
     # ---------------------------------------------------------------- coding
     def _units(self, frame: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray, pd.DataFrame]:
         """Normalize titles and reduce them to distinct units: everything a title's code depends on
-        (key, primary role, number of roles and of normalizer changes, context), so that a record is
-        coded the same whatever else is in its batch."""
-        normalized = normalize_titles(frame[self.title_col])
-        normalized.index = range(len(frame))
+        (key as written, spelling-corrected key, primary role, number of roles and of normalizer
+        changes, context), so that a record is coded the same whatever else is in its batch.
+
+        Spelling is corrected inside normalization (``normalize_titles(corrector=)``, the one
+        spelling path), so a qualifier hidden by a typo ("nigth shift") is found after correction;
+        the key as written is kept too, for the exact search (a rare real word loses nothing).
+        Returns the units, each row's unit, and the corrected normalization (``title_normalized``)."""
+        titles = frame[self.title_col]
+        written = normalize_titles(titles)
+        normalized = normalize_titles(titles, corrector=self.index_.corrector_)
+        written.index = normalized.index = range(len(frame))
         context = (frame[self.context_col].fillna("").astype(str).to_numpy() if self.context_col in frame.columns
                    else np.full(len(frame), ""))
-        changes = normalized["changes"].map(lambda c: len(c.split("; ")) if c else 0)
-        rows = pd.DataFrame({"key": normalized["key"].to_numpy(), "primary": normalized["primary"].fillna("").to_numpy(),
+        changes = normalized["changes"].map(lambda c: c.split("; ") if c else [])
+        before = written["changes"].map(lambda c: c.split("; ") if c else [])
+        # the corrector's changes: those the normalization made only with it
+        spelled = [len(_multiset_difference(after, was)) for after, was in zip(changes, before)]
+        rows = pd.DataFrame({"key": written["key"].to_numpy(), "corrected": normalized["key"].to_numpy(),
+                             "primary": normalized["primary"].fillna("").to_numpy(),
                              "n_roles": (normalized["roles"].str.count(r"\|") + 1).to_numpy(dtype=float),
-                             "n_changes": changes.to_numpy(dtype=float), "context": context})
+                             "n_changes": changes.map(len).to_numpy(dtype=float),
+                             "spelling_changed": np.asarray(spelled, dtype=float), "context": context})
         uniq = rows.drop_duplicates().reset_index(drop=True)
         unit_of_row = pd.MultiIndex.from_frame(uniq).get_indexer(pd.MultiIndex.from_frame(rows))
-        corrected, spelled = self._correct(uniq["key"].unique())
-        uniq["corrected"] = uniq["key"].map(corrected)
-        uniq["spelling_changed"] = uniq["key"].map(spelled).astype(float)
-        uniq["n_changes"] = uniq["n_changes"] + uniq["spelling_changed"]
         return uniq, unit_of_row, normalized
-
-    def _correct(self, keys) -> tuple[dict, dict]:
-        corrected, changed = {}, {}
-        for key in keys:
-            tokens, changes = self.index_.corrector_.correct(key.split())
-            corrected[key] = " ".join(tokens)
-            changed[key] = len(changes)
-        return corrected, changed
 
     def features(self, X) -> pd.DataFrame:
         """Candidate codes with their features, one row per (record, candidate), best first.
@@ -223,6 +225,18 @@ class TitleCoder(BaseEstimator):
 
     def score(self, X, y) -> float:
         return float(np.mean(self.predict(X) == np.asarray(y, dtype=object)))
+
+
+def _multiset_difference(a: list, b: list) -> list:
+    """Items of ``a`` not matched one for one in ``b``."""
+    rest = list(b)
+    out = []
+    for item in a:
+        if item in rest:
+            rest.remove(item)
+        else:
+            out.append(item)
+    return out
 
 
 def best_first(cands: pd.DataFrame, group: str, by: str) -> pd.DataFrame:

@@ -210,18 +210,46 @@ class SpellingCorrector:
             raise ValueError("SpellingCorrector is not fitted; call fit(vocabulary) first")
 
     # ------------------------------------------------------------------ persistence
-    def save(self, directory: str | os.PathLike) -> Path:
-        """Save the vocabulary and parameters (the index is rebuilt on load)."""
+    def tables(self, prefix: str = "") -> dict[str, pd.DataFrame]:
+        """The vocabulary as a table (word, count), for an artefact."""
         self._check_fitted()
-        table = pd.DataFrame({"token": list(self.vocabulary_), "count": list(self.vocabulary_.values())})
-        save_artefact(directory, ARTEFACT_KIND, {"vocabulary": table}, meta=self.get_params())
-        return Path(directory)
+        return {f"{prefix}vocabulary": pd.DataFrame({"token": list(self.vocabulary_),
+                                                     "count": list(self.vocabulary_.values())})}
+
+    def arrays(self, prefix: str = "") -> dict[str, np.ndarray]:
+        """The delete index as plain arrays, so loading does not rebuild it."""
+        self._check_fitted()
+        return {f"{prefix}hashes": self._hashes, f"{prefix}ids": self._ids}
+
+    @classmethod
+    def restore(cls, tables: dict, arrays: dict, params: dict, prefix: str = "") -> "SpellingCorrector":
+        """A fitted corrector from ``tables()``, ``arrays()`` and ``get_params()``: the vocabulary is read
+        and the delete index taken as saved (fitting again would give the same arrays)."""
+        self = cls(**params)
+        self._check_params()
+        table = tables[f"{prefix}vocabulary"]
+        counts = dict(zip(table["token"].astype(str), table["count"].astype("int64").tolist()))
+        self.vocabulary_ = counts
+        self.protected_ = title_lexicon().key_words if self.use_lexicon else frozenset()
+        targets = sorted(w for w in counts if w.isalpha() and len(w) >= self.min_length)
+        self.targets_ = np.array(targets, dtype=object)
+        self._target_counts = np.array([counts[w] for w in targets], dtype=np.int64)
+        self._hashes = np.asarray(arrays[f"{prefix}hashes"], dtype=np.int64)
+        self._ids = np.asarray(arrays[f"{prefix}ids"], dtype=np.int32)
+        self._cache = {}
+        return self
+
+    def save(self, directory: str | os.PathLike) -> Path:
+        """Save the vocabulary, the delete index and the parameters (Parquet + .npy, no pickle)."""
+        return save_artefact(directory, ARTEFACT_KIND, self.tables(), arrays=self.arrays(), meta=self.get_params())
 
     @classmethod
     def load(cls, directory: str | os.PathLike) -> "SpellingCorrector":
         art = load_artefact(directory, ARTEFACT_KIND)
-        table = art.tables["vocabulary"]
-        return cls(**art.meta).fit(dict(zip(table["token"].astype(str), table["count"].astype(int))))
+        if "hashes" not in art.arrays:  # saved before the index was: build it
+            table = art.tables["vocabulary"]
+            return cls(**art.meta).fit(dict(zip(table["token"].astype(str), table["count"].astype(int))))
+        return cls.restore(art.tables, art.arrays, art.meta)
 
     def get_params(self) -> dict:
         return {"max_distance": int(self.max_distance), "min_length": int(self.min_length),
