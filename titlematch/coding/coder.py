@@ -23,8 +23,6 @@ from .dictionary import ARTEFACT_KIND, TitleDictionary
 from .features import FEATURES, ContextTables, candidate_features
 from ..normalize.title import normalize_titles
 
-OUTPUT_COLUMNS = ["title_normalized", "code", "code_title", "score", "code_2", "score_2", "code_3", "score_3"]
-
 
 class TitleCoder(BaseEstimator):
     """Code free-text job titles to classification codes from past coded records.

@@ -11,11 +11,6 @@ SOC_PATTERN = r"^\d{2}-\d{4}(\.\d{2})?$"
 from .levels import SOC_LEVELS  # noqa: F401  (re-exported; defined apart so the command line loads no pandas)
 
 
-def valid_codes(codes: pd.Series, pattern: str = SOC_PATTERN) -> pd.Series:
-    """Boolean Series: which codes match ``pattern`` (default SOC ``NN-NNNN`` with optional ``.NN``)."""
-    return codes.astype(str).str.match(pattern)
-
-
 def major_group(code: str) -> str:
     """The SOC major group: the first two digits (``"29-1141"`` -> ``"29"``)."""
     return str(code)[:2]

@@ -23,7 +23,6 @@ import numpy as np
 import pandas as pd
 from unidecode import unidecode
 
-from .. import __version__
 from ..io.artefact import load_artefact, save_artefact
 from .codes import SOC_PATTERN, to_soc_2018
 from ..io import ROW_COLUMN, InputError, Rejects, file_sha256, read_table, require_columns

@@ -41,7 +41,6 @@ from .register import Field, RegisterIndex, check_fields, resolve_fields
 
 log = logging.getLogger(__name__)
 
-DECISIONS = ("accept", "refer", "no-match")
 ARTEFACT_KIND = "establishment-linker"
 _RULE_TYPES = {"KeyRule": KeyRule, "TokenRule": TokenRule, "NeighbourRule": NeighbourRule}
 OUTPUT_COLUMNS = ["register_id", "confidence", "decision", "register_name", "register_address",
