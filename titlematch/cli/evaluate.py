@@ -31,6 +31,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--seed", type=int, default=0, help="random seed of the bootstrap (default 0)")
     parser.add_argument("--bins", type=int, default=15, help="confidence bins for calibration (default 15)")
     parser.add_argument("--top", type=int, default=20, help="rows of the confusion table (default 20)")
+    parser.add_argument("--decisions", metavar="FILE",
+                        help="decisions file of 'titlematch review': adds the coders' agreement on its "
+                             "double-coded sample (percent agreement, Cohen's kappa, by parent group)")
     parser.add_argument("--encoding", default=None, help="encoding of CSV inputs (default: detected)")
     return parser
 
@@ -55,6 +58,10 @@ def run(args) -> int:
                       seed=args.seed, n_bins=args.bins, level=args.level, top=args.top,
                       coded_name=str(Path(args.coded)), gold_name=str(Path(args.gold)), rejects=rejects,
                       quiet=args.quiet)
+    if args.decisions:
+        from ..reporting.evaluate import add_agreement
+        from ..review.decisions import read_journal
+        add_agreement(result, read_journal(args.decisions), str(args.decisions))
     written = write_report(result, args.out)
     counts = {"rows_in": len(gold), "evaluated": len(result.records)}
     if result.choice is not None:

@@ -11,7 +11,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                               description="Read coders' decisions back from a referral queue, validate the codes "
                                           "against the catalogue, fan them out to the records they cover and write "
                                           "an updated dictionary whose manifest records the provenance.")
-    p.add_argument("queue", metavar="QUEUE_FILE", help="the queue from 'titlematch queue', with coder_code filled in")
+    p.add_argument("queue", metavar="QUEUE_OR_DECISIONS",
+                   help="the queue from 'titlematch queue' with coder_code filled in, or the decisions file "
+                        "(.jsonl) written by 'titlematch review'")
     p.add_argument("--dictionary", required=True, metavar="DIR")
     p.add_argument("--out", required=True, metavar="DIR2", help="the updated dictionary")
     p.add_argument("--year", type=int, help="year the decisions belong to (default: the dictionary's newest + 1)")
@@ -29,8 +31,18 @@ def run(args) -> int:
     summary = Summary("feedback", args.quiet)
     coder = TitleCoder.load(args.dictionary)
     rejects = Rejects()
-    queue = read_table(args.queue, rejects=rejects)
-    decisions = read_decisions(queue, coder.dictionary_, source=str(args.queue), rejects=rejects)
+    if _is_journal(args.queue):
+        from ..review.agreement import journal_decisions
+        from ..review.decisions import read_journal
+
+        dictionary = coder.dictionary_
+        known = set(dictionary.catalogue["code"]) or set(dictionary.entries["code"])
+        decisions = journal_decisions(read_journal(args.queue), known, dictionary.code_pattern,
+                                      source=str(args.queue), rejects=rejects)
+        queue = decisions
+    else:
+        queue = read_table(args.queue, rejects=rejects)
+        decisions = read_decisions(queue, coder.dictionary_, source=str(args.queue), rejects=rejects)
     year = args.year if args.year is not None else coder.dictionary_.reference_year + 1
     updated = apply_feedback(coder.dictionary_, decisions, year=year)
     updated.rejects = rejects  # this version's rejects: the queue rows refused
@@ -42,3 +54,19 @@ def run(args) -> int:
     if len(rejects):
         print(f"refused queue rows with reasons: {Path(args.out) / 'rejects.csv'}")
     return 0
+
+
+def _is_journal(path) -> bool:
+    """A decisions journal: named .jsonl / .ndjson, or a text file whose first character is '{'."""
+    from pathlib import Path
+
+    path = Path(path)
+    if path.suffix.lower() in (".jsonl", ".ndjson"):
+        return True
+    if path.suffix.lower() in (".csv", ".tsv", ".txt", ".xlsx", ".xls", ".parquet"):
+        return False
+    try:
+        with open(path, "rb") as handle:
+            return handle.read(64).lstrip().startswith(b"{")
+    except OSError:
+        return False

@@ -284,3 +284,17 @@ def bootstrap_ci(func: Callable[..., float], *arrays: Sequence, n_boot: int = 10
     values = np.concatenate(stats)
     lower, upper = np.nanquantile(values, [alpha / 2, 1 - alpha / 2])
     return Interval(estimate, float(lower), float(upper))
+
+
+def cohen_kappa(first, second) -> float:
+    """Cohen's kappa between two raters' labels on the same items: (observed - chance agreement)
+    / (1 - chance agreement), chance from each rater's own label shares (Cohen 1960).
+    Returns 1.0 when both raters use one and the same label throughout (no disagreement possible)."""
+    a, b = _paired_labels(first, second)
+    labels, inverse = np.unique(np.concatenate([a, b]), return_inverse=True)
+    ia, ib = inverse[:len(a)], inverse[len(a):]
+    observed = float(np.mean(ia == ib))
+    chance = float(np.dot(np.bincount(ia, minlength=len(labels)), np.bincount(ib, minlength=len(labels)))) / len(a) ** 2
+    if chance >= 1.0:
+        return 1.0
+    return (observed - chance) / (1.0 - chance)

@@ -49,6 +49,28 @@ class Evaluation:
     notes: list = field(default_factory=list)
     rejects: Rejects = field(default_factory=Rejects)
     n_bins: int = 15
+    agreement: pd.DataFrame | None = None   # inter-coder agreement on a double-coded sample
+
+
+def add_agreement(evaluation: Evaluation, state, source: str = "decisions file") -> Evaluation:
+    """Attach the inter-coder agreement of a review journal's double-coded sample (percent
+    agreement and Cohen's kappa, overall and by parent group) to an evaluation."""
+    from ..review.agreement import agreement_table, coder_pairs
+
+    pairs = coder_pairs(state)
+    evaluation.agreement = agreement_table(pairs)
+    if not len(pairs):
+        evaluation.notes.append(f"{source} holds no title decided by two coders; start 'titlematch review' "
+                                f"with --double-code to get an agreement figure.")
+    else:
+        overall = evaluation.agreement.iloc[0]
+        evaluation.facts["double-coded titles"] = f"{len(pairs):,}"
+        evaluation.summary = pd.concat([evaluation.summary, pd.DataFrame([
+            _measure("inter-coder agreement", float(overall["agreement"]), len(pairs), None,
+                     "double-coded titles where both coders chose the same code"),
+            _measure("inter-coder kappa", float(overall["kappa"]), len(pairs), None,
+                     "Cohen's kappa: agreement beyond chance (1 = perfect, 0 = chance)")])], ignore_index=True)
+    return evaluation
 
 
 def _with_rows(frame: pd.DataFrame) -> pd.DataFrame:
@@ -361,6 +383,13 @@ def write_report(evaluation: Evaluation, out_dir: str | os.PathLike) -> dict[str
         "Major group of the expert's code (first two digits). Data: major_groups.csv."),
         htmlpage.table(ev.major_groups, {"records": ",", "share": ".1%", "accuracy": ".1%",
                                          "manual_accuracy": ".1%"})))
+    if ev.agreement is not None:
+        written["agreement"] = write_table(ev.agreement, out / "agreement.csv")
+        parts.append(htmlpage.section("Do two coders agree?", htmlpage.paragraph(
+            "Titles of the double-coded sample, decided by two coders who did not see each other's choice. "
+            "Agreement is the share decided alike; Cohen's kappa discounts the agreement expected by chance. "
+            "Group: the parent group of the first coder's code. Data: agreement.csv."),
+            htmlpage.table(ev.agreement, {"titles": ",", "records": ",", "agreement": ".1%", "kappa": ".3f"})))
     parts.append(htmlpage.section("Most frequent confusions", htmlpage.paragraph(
         "Expert's code (truth) against the machine's top code, where they differ. Data: confusions.csv."),
         htmlpage.table(ev.confusions, {"count": ",", "share_of_truth": ".1%"})))
