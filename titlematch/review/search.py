@@ -1,9 +1,14 @@
 """Search the whole classification as a coder types: codes, official titles and dictionary titles.
 
-The typed text goes through the project's title normalizer (so "sr whse assoc" finds
-"warehouse associate"), then rapidfuzz's WRatio ranks every official and dictionary title in one
-vectorized pass; matches are gathered per code (best similarity, then records). A query that
-starts with a digit is read as a code and matched by prefix.
+Every keystroke is one query, so the search must stay fast over 100,000 titles. The typed text is
+read twice, as typed (a half word is not an abbreviation yet) and through the project's title
+normalizer (so "sr whse assoc" finds "warehouse associate"). Each word is looked up in a sorted
+vocabulary of the titles' words: words it starts (a prefix) and, for words of three letters or
+more, words within rapidfuzz's similarity 80 (a typo). A title is found when every typed word
+reaches one of its words; titles reached by prefixes alone rank above those that needed a typo,
+and among them the more of the title typed, the higher. Only when nothing is found so does a
+rapidfuzz scan over all titles run. Matches are gathered per code (best title first, then
+records). A query that starts with a digit is read as a code and matched by prefix.
 """
 from __future__ import annotations
 
@@ -18,23 +23,26 @@ from ..coding.dictionary import TitleDictionary
 from ..normalize.title import normalize_title
 
 _CODE_QUERY = re.compile(r"^\s*\d")
-MIN_SHARE = 0.1          # smallest share of a title's records for its code to be offered
-_MAX_PREFIX_KEYS = 5_000  # beyond this the typed words are too short to narrow anything
 _FOLD = re.compile(r"[^a-z0-9]+")
+MIN_SHARE = 0.1           # smallest share of a title's records for its code to be offered
+TYPO_SIMILARITY = 80      # rapidfuzz ratio at which a typed word stands for a vocabulary word
+_TYPOS_PER_WORD = 8
 
 
 def parent_group(code: str) -> str:
-    """SOC-style parent group: the major group's code ("29-1141" -> "29-0000"); other code
-    schemes fall back to the code's first two characters."""
+    """The parent group a code sits in: the SOC major group ("29-1141" -> "29-0000"), the ISCO-08
+    major group for all-digit codes ("2221" -> "2"), else the code's first two characters."""
     code = str(code)
-    return f"{code[:2]}-0000" if re.match(r"^\d{2}-\d{4}", code) else code[:2]
+    if re.match(r"^\d{2}-\d{4}", code):
+        return f"{code[:2]}-0000"
+    return code[:1] if code.isdigit() else code[:2]
 
 
 class ClassificationSearch:
     """Index of a dictionary's catalogue (codes, official titles) and its title keys.
 
-    ``search(text)`` returns up to ``limit`` codes as dicts: ``code, title, group, matched,
-    similarity, records``.
+    ``search(text)`` returns up to ``limit`` codes as dicts: ``code, title, group, group_title,
+    matched, similarity, records``.
     """
 
     def __init__(self, dictionary: TitleDictionary, *, group_titles: dict[str, str] | None = None):
@@ -42,104 +50,122 @@ class ClassificationSearch:
         self.titles = dict(zip(catalogue["code"].astype(str), catalogue["title"].astype(str)))
         self.group_titles = dict(group_titles or {})
         entries = dictionary.entries[["key", "code", "count"]]
-        # records per code (official titles count 1 each: the classification lists them once)
         self.code_records = entries.groupby("code", sort=False)["count"].sum().astype("int64").to_dict()
-        # every searchable text once, with the codes it stands for, most records first
-        by_key = entries.sort_values(["key", "count", "code"], ascending=[True, False, True])
         official = pd.DataFrame({"key": dictionary.official["key"].astype(str),
                                  "code": dictionary.official["code"].astype(str), "count": 0})
-        texts = pd.concat([by_key, official], ignore_index=True)
+        texts = pd.concat([entries, official], ignore_index=True)
         texts = texts.groupby(["key", "code"], sort=False, as_index=False)["count"].sum()
         # a code counts for a title when it holds a real share of its records (or is its official
         # title): production noise puts stray codes on common titles, which would crowd the list
         share = texts["count"] / texts.groupby("key")["count"].transform("sum").clip(lower=1)
-        official_pairs = set(zip(official["key"], official["code"]))
-        is_official = np.array([pair in official_pairs for pair in zip(texts["key"], texts["code"])], dtype=bool)
-        keep = (share >= MIN_SHARE).to_numpy() | is_official
-        texts = texts[keep].sort_values(["key", "count", "code"], ascending=[True, False, True])
+        official_pairs = pd.MultiIndex.from_frame(official[["key", "code"]])
+        is_official = pd.MultiIndex.from_frame(texts[["key", "code"]]).isin(official_pairs)
+        texts = texts[(share >= MIN_SHARE).to_numpy() | is_official]
+        texts = texts.sort_values(["key", "count", "code"], ascending=[True, False, True])
         grouped = texts.groupby("key", sort=True)
         self.keys: list[str] = list(grouped.groups.keys())
-        codes = grouped["code"].agg(list)
-        counts = grouped["count"].agg(list)
+        codes, counts = grouped["code"].agg(list), grouped["count"].agg(list)
         self.key_codes: list[list[tuple[str, int]]] = [list(zip(codes[k], counts[k])) for k in self.keys]
-        # word-prefix index, so a half-typed title ("regis nur") finds its titles before fuzzy scoring
-        words = sorted({w for k in self.keys for w in k.split()})
-        self._words = words
-        postings: dict[str, list[int]] = {}
-        for i, k in enumerate(self.keys):
-            for w in set(k.split()):
-                postings.setdefault(w, []).append(i)
-        self._postings = [np.asarray(postings[w], dtype=np.int64) for w in words]
+        self._key_ids = {k: i for i, k in enumerate(self.keys)}
+        self._records = grouped["count"].sum().reindex(self.keys).to_numpy(dtype=np.int64)
+        self._letters = np.array([len(k) - k.count(" ") for k in self.keys], dtype=np.float64)
+        # sorted vocabulary of title words with the titles holding each (an inverted index)
+        pairs = pd.DataFrame({"word": pd.Series(self.keys).str.split(), "id": np.arange(len(self.keys))})
+        pairs = pairs.explode("word").dropna().drop_duplicates().sort_values(["word", "id"])
+        self._words: list[str] = pairs["word"].drop_duplicates().tolist()
+        bounds = np.flatnonzero(np.r_[True, pairs["word"].to_numpy()[1:] != pairs["word"].to_numpy()[:-1], True])
+        ids = pairs["id"].to_numpy(dtype=np.int64)
+        self._postings = [ids[a:b] for a, b in zip(bounds[:-1], bounds[1:])]
         self.codes_sorted = sorted(self.titles)
+        self._code_index: dict | None = None
 
-    def _row(self, code: str, matched: str, similarity: float, records: int | None = None) -> dict:
+    def _row(self, code: str, matched: str, similarity: float) -> dict:
         group = parent_group(code)
         return {"code": code, "title": self.titles.get(code, ""), "group": group,
                 "group_title": self.group_titles.get(group, self.titles.get(group, "")), "matched": matched,
-                "similarity": round(float(similarity), 1),
-                "records": int(self.code_records.get(code, 0) if records is None else records)}
+                "similarity": round(float(similarity), 1), "records": int(self.code_records.get(code, 0))}
+
+    # ------------------------------------------------------------------ finding titles
+    def _word_ids(self, word: str) -> tuple[np.ndarray, np.ndarray]:
+        """Vocabulary ids the typed word reaches: by prefix, and by a typo (three letters or more)."""
+        start = bisect.bisect_left(self._words, word)
+        stop = bisect.bisect_left(self._words, word + "\uffff", lo=start)
+        prefixed = np.arange(start, stop)
+        typos = np.empty(0, dtype=np.int64)
+        if len(word) >= 3:
+            found = process.extract(word, self._words, scorer=fuzz.ratio, score_cutoff=TYPO_SIMILARITY,
+                                    limit=_TYPOS_PER_WORD)
+            typos = np.setdiff1d(np.array([i for _, _, i in found], dtype=np.int64), prefixed)
+        return prefixed, typos
+
+    def _titles_of(self, word_ids: np.ndarray) -> np.ndarray:
+        if not len(word_ids):
+            return np.empty(0, dtype=np.int64)
+        return np.unique(np.concatenate([self._postings[i] for i in word_ids]))
+
+    def _match(self, words: list[str]) -> tuple[np.ndarray, np.ndarray]:
+        """Titles every word reaches by prefix, and those it reaches allowing typos."""
+        exact = loose = None
+        for word in words:
+            prefixed, typos = self._word_ids(word)
+            by_prefix = self._titles_of(prefixed)
+            by_any = np.union1d(by_prefix, self._titles_of(typos)) if len(typos) else by_prefix
+            exact = by_prefix if exact is None else np.intersect1d(exact, by_prefix, assume_unique=True)
+            loose = by_any if loose is None else np.intersect1d(loose, by_any, assume_unique=True)
+        empty = np.empty(0, dtype=np.int64)
+        return (empty, empty) if exact is None else (exact, loose)
 
     def search(self, text: str, limit: int = 12) -> list[dict]:
         text = str(text or "")[:200]
         if not text.strip():
             return []
         if _CODE_QUERY.match(text):
-            prefix = text.strip()
-            start = bisect.bisect_left(self.codes_sorted, prefix)
-            found = []
-            for code in self.codes_sorted[start:start + limit]:
-                if not code.startswith(prefix):
-                    break
-                found.append(self._row(code, code, 100.0 if code == prefix else 90.0))
-            return found
-        folded = _FOLD.sub(" ", text.casefold()).strip()
-        key = normalize_title(text).key or folded
-        if not key:
+            return self._codes_starting(text.strip(), limit)
+        typed = _FOLD.sub(" ", text.casefold()).split()
+        normalized = normalize_title(text).key.split()
+        if not typed and not normalized:
             return []
-        scored: dict[int, float] = {}
-        # the words as typed (a half word is not an abbreviation yet) and as normalized
-        found = [p for p in (self._prefix_keys(folded.split()), self._prefix_keys(key.split())) if p is not None]
-        prefixed = np.unique(np.concatenate(found)) if found else None
-        if prefixed is not None and len(prefixed):
-            # every typed word starts a word of the title: rank above fuzzy look-alikes, the more of
-            # the title typed the higher (90 + 10 x typed letters / title letters)
-            typed = sum(len(w) for w in folded.split())
-            for i in prefixed.tolist():
-                letters = len(self.keys[i]) - self.keys[i].count(" ")
-                scored[i] = 90.0 + 10.0 * min(1.0, typed / max(letters, 1))
-        for _, similarity, i in process.extract(key, self.keys, scorer=fuzz.WRatio, limit=limit * 4,
-                                                score_cutoff=50, processor=None):
-            scored[i] = max(scored.get(i, 0.0), similarity)
-        hits = [(self.keys[i], s, i) for i, s in scored.items()]
-        best: dict[str, tuple[float, int, str]] = {}
-        for matched, similarity, index in hits:
-            for code, count in self.key_codes[index]:
-                if code not in self.titles and self.titles:
-                    continue
-                old = best.get(code)
-                if old is None or (similarity, -len(matched), count) > (old[0], -len(old[2]), old[1]):
-                    best[code] = (similarity, count, matched)
-        # ties (a title inside a longer one scores 100 too) go to the closer title, then more records
-        ranked = sorted(best.items(), key=lambda kv: (-kv[1][0], -fuzz.ratio(key, kv[1][2]),
-                                                      -self.code_records.get(kv[0], 0), kv[0]))
-        return [self._row(code, matched, similarity) for code, (similarity, _, matched) in ranked[:limit]]
-
-    def _prefix_keys(self, words: list[str]) -> np.ndarray | None:
-        """Ids of titles in which every typed word starts some word; None if the words are too short."""
-        result = None
-        for word in words:
-            if len(word) < 2:
+        scores = np.zeros(len(self.keys))
+        letters = sum(len(w) for w in typed)
+        for words in (typed, normalized):
+            if not words:
                 continue
-            start = bisect.bisect_left(self._words, word)
-            stop = bisect.bisect_left(self._words, word + "\uffff", lo=start)
-            if stop - start > 400:
-                return None
-            ids = np.unique(np.concatenate(self._postings[start:stop])) if stop > start else np.empty(0, np.int64)
-            result = ids if result is None else np.intersect1d(result, ids, assume_unique=True)
-            if len(result) > _MAX_PREFIX_KEYS:
-                return None
-        return result
+            exact, loose = self._match(words)
+            # 90-100 for titles reached by prefixes, 80-90 with a typo; the more of the title typed the higher
+            share = np.minimum(1.0, letters / self._letters)
+            scores[loose] = np.maximum(scores[loose], 80.0 + 10.0 * share[loose])
+            scores[exact] = np.maximum(scores[exact], 90.0 + 10.0 * share[exact])
+        for words in (typed, normalized):  # the whole title typed, or its abbreviation ("rn")
+            exact_id = self._key_ids.get(" ".join(words))
+            if exact_id is not None:
+                scores[exact_id] = 100.0
+        found = np.flatnonzero(scores)
+        if not len(found):  # nothing reached word by word: one similarity pass over every title
+            query = " ".join(normalized or typed)
+            for _, similarity, i in process.extract(query, self.keys, scorer=fuzz.QRatio, limit=limit * 4,
+                                                    score_cutoff=50):
+                scores[i] = 0.8 * similarity
+            found = np.flatnonzero(scores)
+        order = found[np.lexsort((-self._records[found], -scores[found]))][:limit * 4]
+        best: dict[str, tuple[float, str]] = {}
+        for i in order:
+            for code, _ in self.key_codes[i]:
+                if code in best or (self.titles and code not in self.titles):
+                    continue
+                best[code] = (float(scores[i]), self.keys[i])
+        ranked = sorted(best.items(), key=lambda kv: (-kv[1][0], -self.code_records.get(kv[0], 0), kv[0]))
+        return [self._row(code, matched, score) for code, (score, matched) in ranked[:limit]]
 
+    def _codes_starting(self, prefix: str, limit: int) -> list[dict]:
+        start = bisect.bisect_left(self.codes_sorted, prefix)
+        found = []
+        for code in self.codes_sorted[start:start + limit]:
+            if not code.startswith(prefix):
+                break
+            found.append(self._row(code, code, 100.0 if code == prefix else 90.0))
+        return found
+
+    # ------------------------------------------------------------------ evidence for a candidate
     def evidence(self, key: str, code: str, limit: int = 3) -> list[dict]:
         """Dictionary titles recorded under ``code`` that look most like ``key``, with their records:
         what a candidate rests on. The title itself comes first when the dictionary has it."""
@@ -147,18 +173,19 @@ class ClassificationSearch:
         if entries is None:
             return []
         keys, counts = entries
-        hits = process.extract(key, keys, scorer=fuzz.WRatio, limit=limit, processor=None)
+        scorer = fuzz.WRatio if len(keys) <= 2_000 else fuzz.ratio  # WRatio's partial pass is costly on many
+        hits = process.extract(key, keys, scorer=scorer, limit=limit, processor=None)
         out = [{"title": keys[i], "records": int(counts[i]), "similarity": round(float(s), 1)} for _, s, i in hits]
         return sorted(out, key=lambda e: (e["title"] != key, -e["similarity"], -e["records"]))
 
     def _by_code(self) -> dict[str, tuple[list[str], np.ndarray]]:
-        if not hasattr(self, "_code_index"):
-            index: dict[str, tuple[list[str], np.ndarray]] = {}
+        if self._code_index is None:
+            index: dict[str, tuple[list[str], list[int]]] = {}
             for key, pairs in zip(self.keys, self.key_codes):
                 for code, count in pairs:
                     if count:
-                        index.setdefault(code, ([], []))
-                        index[code][0].append(key)
-                        index[code][1].append(count)
+                        keys, counts = index.setdefault(code, ([], []))
+                        keys.append(key)
+                        counts.append(count)
             self._code_index = {c: (k, np.asarray(n, dtype=np.int64)) for c, (k, n) in index.items()}
         return self._code_index

@@ -100,8 +100,11 @@ def create_app(session: ReviewSession, token: str) -> Flask:
 
 def serve(app: Flask, host: str, port: int, on_ready) -> None:
     """Serve until interrupted; ``on_ready(actual_port)`` runs once the socket is bound."""
+    import logging
+
     from werkzeug.serving import make_server
 
+    logging.getLogger("werkzeug").setLevel(logging.WARNING)  # no line per request in the coder's terminal
     server = make_server(host, port, app, threaded=True)
     on_ready(server.server_port)
     try:
