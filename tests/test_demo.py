@@ -78,3 +78,10 @@ def test_demo_runs_a_whole_year_on_the_small_scenario(demo):
     parser.feed((out / "evaluation" / "report.html").read_text(encoding="utf-8"))
     assert parser.sources and all(s.startswith("data:image/png;base64,") for s in parser.sources)
     assert "Invented data" in printed
+    # the coders' side shows: offices with real data refer a fifth to a half of their records (common
+    # practice); the invented scenario is made that hard, and the demo ends with the review command
+    referred = (coded["decision"] == "refer").mean()
+    assert 0.15 <= referred <= 0.40, referred
+    last = printed.strip().splitlines()[-1].split()
+    assert last[:3] == ["titlematch", "review", str(out / "coded_2025.csv")]
+    assert last[last.index("--decisions") + 1] == str(out / "decisions_2025.jsonl")

@@ -86,4 +86,22 @@ def run(args) -> int:
                         ("linked establishments", "linked_2025.csv")]:
         print(f"  {label:26s} {out / path}")
     print("Invented data: the office, titles, employers and addresses are fictional.")
+    _print_review_command(out)
     return 0
+
+
+def _print_review_command(out: Path) -> None:
+    """The coders' side: how many records went to coders, and the command that opens their page."""
+    import shlex
+
+    from ..io import read_table
+
+    coded = read_table(out / "coded_2025.csv", required=("decision", "title_normalized"))
+    referred = coded["decision"] == "refer"
+    titles = coded.loc[referred, "title_normalized"].nunique()
+    print(f"\nReferred to coders: {int(referred.sum()):,} of {len(coded):,} records "
+          f"({referred.mean():.0%}) in {titles:,} distinct titles. Code them on a local page "
+          f"(pip install 'titlematch[review]'):")
+    argv = ["titlematch", "review", out / "coded_2025.csv", "--dictionary", out / "dictionary",
+            "--model", out / "model", "--decisions", out / "decisions_2025.jsonl", "--coder", "YOUR_NAME"]
+    print("  " + " ".join(shlex.quote(str(a)) for a in argv))

@@ -15,6 +15,7 @@ from ._sampling import (GroupSampler, StringPool, draw_weighted, misspell, rank_
 # Kinds of title variant.
 STANDARD, GENDERED, SPANISH, NEW_TITLE = 0, 1, 2, 3
 _KIND_NAMES = ("standard", "gendered", "spanish", "new_title")
+VAGUE_SHARE = 0.18              # default share of records answered with a vague title of the major group
 
 SPANISH_SHARE = 0.03
 GENDERED_RATE = 0.15
@@ -47,6 +48,9 @@ class TitleModel:
     companions: GroupSampler       # group = occupation -> occupation sharing a context
     neighbours: GroupSampler       # group = occupation -> confusable occupation
     top_title: list[str]           # most frequent title per occupation
+    vague_text: list[str]          # vague titles ("operator", "associate", "nurse") shared by a major group
+    vague: GroupSampler            # group = occupation -> vague title of its major group
+    has_vague: np.ndarray          # per occupation
 
 
 @lru_cache(maxsize=1)
@@ -112,6 +116,16 @@ def title_model() -> TitleModel:
     new_title_rate = np.minimum(0.5, NEW_TITLE_SHARE * new_entries / share)
 
     context_sets = np.array(set_rows, dtype=float)
+    vague_text, vague_rows = [], []
+    for i, code in enumerate(codes):
+        titles = split_alternatives(vocab.VAGUE_TITLES.get(code[:2], ""))
+        for weight, title in zip(rank_weights(len(titles)), titles):
+            if title not in vague_text:
+                vague_text.append(title)
+            vague_rows.append((i, vague_text.index(title), weight))
+    vague_table = np.array(vague_rows, dtype=float).reshape(-1, 3)
+    has_vague = np.zeros(len(codes), dtype=bool)
+    has_vague[vague_table[:, 0].astype(np.int64)] = True
     return TitleModel(
         codes=codes, prevalence=prevalence, variant_text=texts, variant_occupation=occupation_of,
         variant_kind=kind_of, variant_shared=shared, variant_context_set=table[:, 3].astype(np.int64),
@@ -123,6 +137,9 @@ def title_model() -> TitleModel:
         companions=_companion_sampler(occupation_contexts, codes, prevalence),
         neighbours=_neighbour_sampler(codes, position),
         top_title=[split_alternatives(row[3])[0] for row in occupations],
+        vague_text=vague_text,
+        vague=GroupSampler(vague_table[:, 0].astype(np.int64), vague_table[:, 1].astype(np.int64), vague_table[:, 2]),
+        has_vague=has_vague,
     )
 
 
@@ -233,8 +250,14 @@ def _case_style(text: str, style: int) -> str:
 # Title records.
 # ---------------------------------------------------------------------------------------------------
 def title_records(model: TitleModel, rng: np.random.Generator, n: int, weights: np.ndarray,
-                   new_titles: bool) -> dict[str, np.ndarray]:
-    """Occupation, title, context and miscoding propensity for ``n`` survey records."""
+                   new_titles: bool, vague_share: float = 0.0) -> dict[str, np.ndarray]:
+    """Occupation, title, context and miscoding propensity for ``n`` survey records.
+
+    ``vague_share`` of the English records (of occupations whose major group has vague titles) are
+    answered with a title the whole major group shares ("operator", "associate", "nurse"), so only
+    the workplace, if anything, tells the occupation: the bulk of what real offices refer to coders.
+    With ``vague_share=0`` no random number is drawn for it, so the records are those of before.
+    """
     occupation = draw_weighted(rng, weights, n)
     kind = np.full(n, STANDARD, dtype=np.int64)
     gendered = (rng.random(n) < GENDERED_RATE) & model.has_kind[occupation, GENDERED]
@@ -257,8 +280,13 @@ def title_records(model: TitleModel, rng: np.random.Generator, n: int, weights: 
     pool = StringPool(model.variant_text)
     ids = np.array([pool.index[text] for text in model.variant_text], dtype=np.int64)[variant]
     english = kind != SPANISH
+    vague = np.zeros(n, dtype=bool)
+    if vague_share > 0:
+        vague = english & (kind != NEW_TITLE) & model.has_vague[occupation] & (rng.random(n) < vague_share)
+        vague_ids = np.array([pool.intern(text) for text in model.vague_text], dtype=np.int64)
+        ids[vague] = vague_ids[model.vague.draw(rng, occupation)[vague]]
     joiners = len(vocab.MULTI_ROLE_JOINERS)
-    multi = english & (rng.random(n) < MULTI_ROLE_RATE)
+    multi = english & ~vague & (rng.random(n) < MULTI_ROLE_RATE)
     mate = model.companions.draw(rng, occupation)
     multi &= mate != occupation  # occupations without a companion keep a single role
     companion = mate * joiners + rng.integers(joiners, size=n)
@@ -285,8 +313,9 @@ def title_records(model: TitleModel, rng: np.random.Generator, n: int, weights: 
     pool.apply(ids, style > 0, style, _case_style, len(CASE_STYLES))
 
     propensity = (1.0 + model.variant_shared[variant] + 0.5 * (misspelled | multi | (kind == SPANISH))
-                  + 1.0 * (kind == NEW_TITLE) + 0.5 * blank)
+                  + 1.0 * (kind == NEW_TITLE) + 0.5 * blank + 1.0 * vague)
     labels = np.array(_KIND_NAMES, dtype=object)[kind]
+    labels = np.where(vague, "vague", labels)
     labels = np.where(misspelled, labels + "+misspelled", labels)
     labels = np.where(multi, labels + "+multi_role", labels)
     return {"occupation": occupation, "title": pool.lookup(ids), "context": context_pool.lookup(context_ids),

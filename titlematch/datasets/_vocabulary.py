@@ -37,6 +37,7 @@ GENDERED_TITLES: dict[str, str] = _pairs("gendered_titles")
 NEW_YEAR_TITLES: list[tuple[str, str, str]] = [tuple(row) for row in _rows("new_year_titles")]
 CONFUSABLE: list[tuple[str, str]] = [tuple(row) for row in _rows("confusable")]
 ABBREVIATIONS: dict[str, str] = _pairs("abbreviations")
+VAGUE_TITLES: dict[str, str] = _pairs("vague_titles")
 QUALIFIERS: tuple[str, ...] = _column("qualifiers")
 MULTI_ROLE_JOINERS: tuple[str, ...] = _column("multi_role_joiners")
 
