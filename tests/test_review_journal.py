@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 from sklearn.metrics import cohen_kappa_score
 
-from _review_data import build, coded_frame
+from _review_data import coded_frame
 from titlematch.cli import main
 from titlematch.coding.dictionary import TitleDictionary
 from titlematch.measures.metrics import cohen_kappa
@@ -19,13 +19,8 @@ from titlematch.review.session import DecisionRefused, ReviewSession, queue_titl
 
 
 @pytest.fixture(scope="module")
-def files(tmp_path_factory):
-    return build(tmp_path_factory.mktemp("journal"))
-
-
-@pytest.fixture(scope="module")
-def dictionary(files):
-    return TitleDictionary.load(files["dictionary"])
+def dictionary(review_files):
+    return TitleDictionary.load(review_files["dictionary"])
 
 
 def _session(dictionary, path, coder, queue=None, **options):
@@ -148,7 +143,7 @@ def test_kappa_matches_scikit_learn_on_random_labels():
         assert cohen_kappa(a, b) == pytest.approx(cohen_kappa_score(a, b), abs=1e-12)
 
 
-def test_feedback_and_evaluate_read_the_journal(files, dictionary, tmp_path):
+def test_feedback_and_evaluate_read_the_journal(review_files, dictionary, tmp_path):
     path = tmp_path / "d.jsonl"
     ann = _session(dictionary, path, "ann", double_code=1.0)
     bob = _session(dictionary, path, "bob", double_code=1.0)
@@ -160,7 +155,7 @@ def test_feedback_and_evaluate_read_the_journal(files, dictionary, tmp_path):
             else:
                 coder.decide(current["key"], "code", choice[current["key"]])
     out = tmp_path / "dictionary_2"
-    assert main(["feedback", str(path), "--dictionary", str(files["dictionary"]), "--out", str(out),
+    assert main(["feedback", str(path), "--dictionary", str(review_files["dictionary"]), "--out", str(out),
                  "--year", "2025", "--quiet"]) == 0
     added = TitleDictionary.load(out).counts.query("year == 2025")
     assert sorted(zip(added["key"], added["code"])) == [("associate", "41-2031"), ("nurse", "29-1141")]
@@ -179,3 +174,17 @@ def test_feedback_and_evaluate_read_the_journal(files, dictionary, tmp_path):
     assert agreement.loc[0, "agreement"] == pytest.approx(0.75)
     assert agreement.loc[0, "kappa"] == pytest.approx(cohen_kappa_score(pairs["code_1"], pairs["code_2"]))
     assert "Do two coders agree?" in (tmp_path / "evaluation" / "report.html").read_text(encoding="utf-8")
+
+
+def test_a_spreadsheet_queue_is_served_in_the_same_order(tmp_path):
+    from titlematch.io import read_table
+    from titlematch.review.queue import escape_frame, referral_queue
+
+    coded = coded_frame()
+    coded.loc[coded["title_normalized"] == "helper", "title"] = "=HYPERLINK(1)"  # a formula-looking title
+    escape_frame(referral_queue(coded)).to_csv(tmp_path / "queue.csv", index=False)
+    from_queue, _ = queue_titles(read_table(tmp_path / "queue.csv"), "queue.csv")
+    from_coded, examples = queue_titles(coded, "coded.csv")
+    assert from_queue["title_normalized"].tolist() == from_coded["title_normalized"].tolist()
+    assert from_queue.set_index("title_normalized").loc["helper", "example_title"] == "=HYPERLINK(1)"
+    assert [e["record_id"] for e in examples["nurse"]] == ["R0001", "R0002", "R0003", "R0004"]

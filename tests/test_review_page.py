@@ -12,15 +12,10 @@ from selenium.webdriver.common.action_chains import ActionChains
 from selenium.webdriver.common.by import By
 from selenium.webdriver.support.ui import WebDriverWait
 
-from _review_data import XSS_KEY, XSS_TITLE, ReviewServer, build, chrome
+from _review_data import XSS_KEY, XSS_TITLE, ReviewServer, chrome
 from titlematch.cli import main
 from titlematch.coding.dictionary import TitleDictionary
 from titlematch.review.decisions import read_journal
-
-
-@pytest.fixture(scope="module")
-def files(tmp_path_factory):
-    return build(tmp_path_factory.mktemp("review"))
 
 
 @pytest.fixture
@@ -51,9 +46,9 @@ def _no_alert(driver) -> bool:
     return False
 
 
-def test_code_from_the_keyboard_survive_a_kill_and_feed_back(files, browser, tmp_path):
+def test_code_from_the_keyboard_survive_a_kill_and_feed_back(review_files, browser, tmp_path):
     decisions = tmp_path / "decisions.jsonl"
-    server = ReviewServer(files["coded"], files["dictionary"], decisions)
+    server = ReviewServer(review_files["coded"], review_files["dictionary"], decisions)
     try:
         browser.get(server.url)
         _wait_for(browser, "written", "Nurse")          # most records x uncertainty first
@@ -84,7 +79,7 @@ def test_code_from_the_keyboard_survive_a_kill_and_feed_back(files, browser, tmp
     finally:
         server.kill()  # SIGKILL: no chance to flush anything that was not already on disk
 
-    restarted = ReviewServer(files["coded"], files["dictionary"], decisions)
+    restarted = ReviewServer(review_files["coded"], review_files["dictionary"], decisions)
     try:
         browser.get(restarted.url)
         _wait_for(browser, "written", "Associate")     # resumes on the title the coder held
@@ -101,7 +96,7 @@ def test_code_from_the_keyboard_survive_a_kill_and_feed_back(files, browser, tmp
     assert [e["records"] for e in coded] == [5, 4]
 
     out = tmp_path / "dictionary_2025"
-    assert main(["feedback", str(decisions), "--dictionary", str(files["dictionary"]), "--out", str(out),
+    assert main(["feedback", str(decisions), "--dictionary", str(review_files["dictionary"]), "--out", str(out),
                  "--year", "2025", "--quiet"]) == 0
     updated = TitleDictionary.load(out)
     added = updated.counts[updated.counts["year"] == 2025]
@@ -109,10 +104,39 @@ def test_code_from_the_keyboard_survive_a_kill_and_feed_back(files, browser, tmp
                                                                        ("nurse", "29-1141", 5)]
 
 
-def test_untrusted_titles_and_notes_show_as_text(files, browser, tmp_path):
-    decisions = tmp_path / "decisions.jsonl"
-    server = ReviewServer(files["xss"], files["dictionary"], decisions)
+def _request(url: str, body: dict | None = None, token: str | None = None):
+    data = None if body is None else json.dumps(body).encode("utf-8")
+    request = urllib.request.Request(url, data=data, method="POST" if body is not None else "GET")
+    if body is not None:
+        request.add_header("Content-Type", "application/json")
+    if token:
+        request.add_header("X-Review-Token", token)
     try:
+        with urllib.request.urlopen(request, timeout=30) as response:
+            return response.status, response.read().decode("utf-8"), dict(response.headers)
+    except urllib.error.HTTPError as error:
+        return error.code, error.read().decode("utf-8"), dict(error.headers)
+
+
+def test_safe_by_default_token_escaping_and_unknown_codes(review_files, browser, tmp_path):
+    decisions = tmp_path / "decisions.jsonl"
+    server = ReviewServer(review_files["xss"], review_files["dictionary"], decisions)
+    try:
+        base, token = server.base, server.token
+        assert base.startswith("http://127.0.0.1:")  # loopback unless --host is given
+        for path in ("/", "/static/review.js", "/api/state", "/api/search?q=nurse"):
+            assert _request(base + path)[0] == 403, path
+            assert _request(base + path, token="wrong-" + token)[0] == 403, path
+        assert _request(base + "/api/decide", {"title": XSS_KEY, "action": "code", "code": "29-1141"})[0] == 403
+        status, _, headers = _request(server.url)
+        assert status == 200 and "default-src 'none'" in headers["Content-Security-Policy"]
+        # SOC 2018 has no 99-9999 (O*NET-SOC 2019 table): a made-up code is refused and nothing is written
+        for code in ("99-9999", "nurse"):
+            status, body, _ = _request(base + "/api/decide", {"title": XSS_KEY, "action": "code", "code": code},
+                                       token=token)
+            assert status == 400 and "not in the classification" in json.loads(body)["error"]
+        assert read_journal(decisions).effective(("code", "uncodable")) == []
+
         browser.get(server.url)
         _wait_for(browser, "written", XSS_TITLE)
         assert _text(browser, "normalized") == XSS_KEY
@@ -134,49 +158,6 @@ def test_untrusted_titles_and_notes_show_as_text(files, browser, tmp_path):
         assert not browser.find_elements(By.CSS_SELECTOR, "#message b, #message img")
     finally:
         server.kill()
-    entry = read_journal(decisions).effective(("code",))[0]
-    assert entry["title"] == XSS_KEY and entry["remark"] == "<b>see</b> <img src=x onerror=alert(3)>"
-
-
-def _request(url: str, body: dict | None = None, token: str | None = None):
-    data = None if body is None else json.dumps(body).encode("utf-8")
-    request = urllib.request.Request(url, data=data, method="POST" if body is not None else "GET")
-    if body is not None:
-        request.add_header("Content-Type", "application/json")
-    if token:
-        request.add_header("X-Review-Token", token)
-    try:
-        with urllib.request.urlopen(request, timeout=30) as response:
-            return response.status, response.read().decode("utf-8"), dict(response.headers)
-    except urllib.error.HTTPError as error:
-        return error.code, error.read().decode("utf-8"), dict(error.headers)
-
-
-def test_token_required_and_unknown_codes_refused(files, tmp_path):
-    decisions = tmp_path / "decisions.jsonl"
-    server = ReviewServer(files["coded"], files["dictionary"], decisions)
-    try:
-        base, token = server.base, server.token
-        for path in ("/", "/static/review.js", "/api/state", "/api/search?q=nurse"):
-            assert _request(base + path)[0] == 403, path
-            assert _request(base + path, token="wrong-" + token)[0] == 403, path
-        assert _request(base + "/api/decide", {"title": "nurse", "action": "code", "code": "29-1141"})[0] == 403
-        status, page, headers = _request(server.url)
-        assert status == 200 and "default-src 'none'" in headers["Content-Security-Policy"]
-        assert "127.0.0.1" in base  # loopback by default
-        status, body, _ = _request(base + "/api/state", token=token)
-        assert status == 200 and json.loads(body)["current"]["key"] == "nurse"
-        # SOC 2018 has no 99-9999 (O*NET-SOC 2019 table); a made-up code is refused, nothing written
-        status, body, _ = _request(base + "/api/decide", {"title": "nurse", "action": "code", "code": "99-9999"},
-                                   token=token)
-        assert status == 400 and "not in the classification" in json.loads(body)["error"]
-        status, body, _ = _request(base + "/api/decide", {"title": "nurse", "action": "code", "code": "nurse"},
-                                   token=token)
-        assert status == 400
-        assert read_journal(decisions).effective(("code", "uncodable")) == []
-        status, body, _ = _request(base + "/api/decide", {"title": "nurse", "action": "code", "code": "29-1141"},
-                                   token=token)
-        assert status == 200
-        assert [e["code"] for e in read_journal(decisions).effective(("code",))] == ["29-1141"]
-    finally:
-        server.kill()
+    entries = read_journal(decisions).effective(("code",))
+    assert [(e["title"], e["code"]) for e in entries] == [(XSS_KEY, "29-1141")]
+    assert entries[0]["remark"] == "<b>see</b> <img src=x onerror=alert(3)>"

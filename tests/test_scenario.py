@@ -133,6 +133,22 @@ def test_surface_noise_rates(titles):
     assert (titles["past"]["context"] == "").mean() < 0.05
 
 
+def test_vague_titles_take_the_requested_share_and_none_without_it():
+    frames = make_title_scenario(seed=4, years=(2024,), records_per_year=500, new_records=6_000,
+                                 gold_records=10, vague_share=0.3)
+    kinds = frames["new_kinds"]["kind"]
+    english = ~kinds.str.startswith(("spanish", "new_title"))
+    # every major group of the scenario has vague titles, so about 30% of English records get one
+    assert abs((kinds[english] == "vague").mean() - 0.3) < 0.03
+    vague_titles = sorted({t for titles in vocab.VAGUE_TITLES.values() for t in titles.split("|")})
+    written = _plain(frames["new"].loc[kinds == "vague", "title"])
+    # surface noise (abbreviations, qualifiers, misspellings) still applies to them
+    assert written.map(lambda text: any(v in text for v in vague_titles)).mean() > 0.8
+    none = make_title_scenario(seed=4, years=(2024,), records_per_year=500, new_records=2_000, gold_records=10,
+                               vague_share=0.0)
+    assert not none["new_kinds"]["kind"].eq("vague").any()
+
+
 def test_new_year_only_titles_never_appear_in_the_past(titles):
     is_new = titles["new_kinds"]["kind"].str.startswith("new_title")
     assert 0.005 < is_new.mean() < 0.05

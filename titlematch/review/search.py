@@ -51,6 +51,7 @@ class ClassificationSearch:
         self.group_titles = dict(group_titles or {})
         entries = dictionary.entries[["key", "code", "count"]]
         self.code_records = entries.groupby("code", sort=False)["count"].sum().astype("int64").to_dict()
+        self._pair_records = dict(zip(zip(entries["key"], entries["code"]), entries["count"].astype("int64")))
         official = pd.DataFrame({"key": dictionary.official["key"].astype(str),
                                  "code": dictionary.official["code"].astype(str), "count": 0})
         texts = pd.concat([entries, official], ignore_index=True)
@@ -169,14 +170,18 @@ class ClassificationSearch:
     def evidence(self, key: str, code: str, limit: int = 3) -> list[dict]:
         """Dictionary titles recorded under ``code`` that look most like ``key``, with their records:
         what a candidate rests on. The title itself comes first when the dictionary has it."""
+        out = []
+        exact = self._pair_records.get((key, code), 0)
+        if exact:  # the title itself, however small its share: "operator" was coded so N times
+            out.append({"title": key, "records": int(exact), "similarity": 100.0})
         entries = self._by_code().get(code)
-        if entries is None:
-            return []
-        keys, counts = entries
-        scorer = fuzz.WRatio if len(keys) <= 2_000 else fuzz.ratio  # WRatio's partial pass is costly on many
-        hits = process.extract(key, keys, scorer=scorer, limit=limit, processor=None)
-        out = [{"title": keys[i], "records": int(counts[i]), "similarity": round(float(s), 1)} for _, s, i in hits]
-        return sorted(out, key=lambda e: (e["title"] != key, -e["similarity"], -e["records"]))
+        if entries is not None:
+            keys, counts = entries
+            scorer = fuzz.WRatio if len(keys) <= 2_000 else fuzz.ratio  # WRatio's partial pass is costly
+            for _, similarity, i in process.extract(key, keys, scorer=scorer, limit=limit + 1, processor=None):
+                if keys[i] != key and len(out) < limit:
+                    out.append({"title": keys[i], "records": int(counts[i]), "similarity": round(float(similarity), 1)})
+        return out
 
     def _by_code(self) -> dict[str, tuple[list[str], np.ndarray]]:
         if self._code_index is None:

@@ -74,7 +74,7 @@ def queue_titles(frame: pd.DataFrame, source: str) -> tuple[pd.DataFrame, dict[s
     frame.columns = [unescape_formula(str(c)) for c in frame.columns]
     examples: dict[str, list[dict]] = {}
     if "coder_code" in frame.columns and "queue_id" in frame.columns:
-        queue = frame.map(unescape_formula) if hasattr(frame, "map") else frame
+        queue = frame.map(unescape_formula) if hasattr(frame, "map") else frame.applymap(unescape_formula)
         for col in ("title_normalized", "records"):
             if col not in queue.columns:
                 raise InputError(f"{source}: the queue has no '{col}' column")
