@@ -63,12 +63,18 @@ class ClassificationSearch:
         is_official = pd.MultiIndex.from_frame(texts[["key", "code"]]).isin(official_pairs)
         texts = texts[(share >= MIN_SHARE).to_numpy() | is_official]
         texts = texts.sort_values(["key", "count", "code"], ascending=[True, False, True])
-        grouped = texts.groupby("key", sort=True)
-        self.keys: list[str] = list(grouped.groups.keys())
-        codes, counts = grouped["code"].agg(list), grouped["count"].agg(list)
-        self.key_codes: list[list[tuple[str, int]]] = [list(zip(codes[k], counts[k])) for k in self.keys]
+        # one slice per title of the sorted (key, code, count) arrays: no per-group pandas objects
+        key_of = texts["key"].to_numpy(dtype=object)
+        code_of = texts["code"].to_numpy(dtype=object)
+        count_of = texts["count"].to_numpy(dtype=np.int64)
+        starts = np.flatnonzero(np.r_[True, key_of[1:] != key_of[:-1]]) if len(key_of) else np.empty(0, np.int64)
+        stops = np.r_[starts[1:], len(key_of)].astype(np.int64)
+        self.keys: list[str] = key_of[starts].tolist()
+        code_list, count_list = code_of.tolist(), count_of.tolist()
+        self.key_codes: list[list[tuple[str, int]]] = [list(zip(code_list[a:b], count_list[a:b]))
+                                                       for a, b in zip(starts.tolist(), stops.tolist())]
         self._key_ids = {k: i for i, k in enumerate(self.keys)}
-        self._records = grouped["count"].sum().reindex(self.keys).to_numpy(dtype=np.int64)
+        self._records = np.add.reduceat(count_of, starts) if len(starts) else np.empty(0, np.int64)
         self._letters = np.array([len(k) - k.count(" ") for k in self.keys], dtype=np.float64)
         # sorted vocabulary of title words with the titles holding each (an inverted index)
         pairs = pd.DataFrame({"word": pd.Series(self.keys).str.split(), "id": np.arange(len(self.keys))})

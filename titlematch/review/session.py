@@ -185,7 +185,8 @@ class ReviewSession:
 
     def progress(self) -> dict:
         decided = self._decided()
-        done = sum(1 for k in self.keys if len(decided.get(k, ())) >= self.needed[k])
+        # over the decided titles only: a next-title request must not walk a 50,000-title queue
+        done = sum(1 for k, entries in decided.items() if k in self.needed and len(entries) >= self.needed[k])
         skipped = len({k for k in self._skipped_by_me() if k in self.rows and len(decided.get(k, ())) < self.needed[k]})
         mine = sum(1 for entries in decided.values() for e in entries if e.get("coder") == self.coder)
         return {"done": done, "skipped": skipped, "left": len(self.keys) - done - skipped, "total": len(self.keys),
