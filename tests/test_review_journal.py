@@ -70,6 +70,8 @@ def test_the_queue_order_resume_and_refusals(dictionary, tmp_path):
     with pytest.raises(DecisionRefused, match="not the one you hold"):
         session.decide("driver", "code", "53-3032")
     session.decide("nurse", "code", "29-1141", remark="checked the manual")
+    assert session.state()["threshold"] is None and _session(dictionary, tmp_path / "x.jsonl", "ann",
+                                                             threshold=0.8).state()["threshold"] == 0.8
     again = _session(dictionary, tmp_path / "d.jsonl", "ann")  # a restart reads the same file
     assert again.state()["current"]["key"] == "driver"
     assert again.progress() | {} == {"done": 1, "skipped": 0, "left": 3, "total": 4, "by_me": 1,

@@ -139,6 +139,7 @@ def test_safe_by_default_token_escaping_and_unknown_codes(review_files, browser,
 
         browser.get(server.url)
         _wait_for(browser, "written", XSS_TITLE)
+        assert _text(browser, "threshold") == ""  # started without --model
         assert _text(browser, "normalized") == XSS_KEY
         assert "<b>bold</b> & co" in _text(browser, "contexts")
         assert XSS_TITLE in _text(browser, "examples")

@@ -95,6 +95,8 @@
   function render(state) {
     view = state;
     $("coder").textContent = state.coder;
+    $("threshold").textContent = (state.threshold === null || state.threshold === undefined) ? "" :
+      "the machine accepts from " + percent(state.threshold) + " confidence";
     $("count-done").textContent = state.progress.done.toLocaleString();
     $("count-left").textContent = state.progress.left.toLocaleString();
     $("count-skipped").textContent = state.progress.skipped.toLocaleString();
