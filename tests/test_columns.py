@@ -137,3 +137,22 @@ def test_dictionary_title_col_ignores_an_unrelated_title_column(tmp_path):
     assert main(["dictionary", str(tmp_path / "past.csv"), "--title-col", "job", "--code-col", "soc",
                  "--out", str(tmp_path / "d"), "--quiet"]) == 0
     assert TitleCoder.load(tmp_path / "d").predict(["Truck Driver"]).tolist() == ["53-3032"]
+
+
+def test_features_are_written_from_the_same_stream(coded_setup, tmp_path):
+    path, coder = coded_setup
+    given = _read(path / "in.csv")
+    common = ["code", str(path / "in.csv"), "--title-col", "job", "--dictionary", str(path / "dict"),
+              "--output-prefix", "m_", "--quiet"]
+    assert main([*common, "--out", str(tmp_path / "a.csv"), "--features", str(tmp_path / "fa.csv"),
+                 "--chunk-rows", "7"]) == 0
+    assert main([*common, "--out", str(tmp_path / "b.csv"), "--features", str(tmp_path / "fb.parquet")]) == 0
+    chunked, whole = pd.read_csv(tmp_path / "fa.csv"), pd.read_parquet(tmp_path / "fb.parquet")
+    assert not (tmp_path / "a.csv.run.features").exists()
+    # the library's features of the whole file, with the record's position turned into its source row
+    # (the header is row 1, so the first record is row 2)
+    expected = TitleCoder.load(path / "dict").set_params(title_col="job").features(given)
+    expected = expected.rename(columns={"record": "row"}).assign(row=lambda f: f["row"] + 2)
+    pd.testing.assert_frame_equal(whole.reset_index(drop=True), expected, check_dtype=False)
+    expected.to_csv(tmp_path / "expected.csv", index=False)  # the same CSV round trip as the chunked file's
+    pd.testing.assert_frame_equal(chunked, pd.read_csv(tmp_path / "expected.csv"), check_exact=False, rtol=1e-12)

@@ -171,9 +171,7 @@ class TitleCoder(BaseEstimator):
         """
         frame = self._as_frame(X)
         units, unit_of_row, _ = self._units(frame)
-        cands = self._unit_candidates(units)
-        rows = pd.DataFrame({"record": np.arange(len(frame)), "unit": unit_of_row})
-        return rows.merge(cands, on="unit").drop(columns="unit").sort_values(["record", "rank"]).reset_index(drop=True)
+        return _per_record(self._unit_candidates(units), unit_of_row)
 
     def _unit_candidates(self, units: pd.DataFrame) -> pd.DataFrame:
         live = units[units["key"] != ""]
@@ -190,14 +188,23 @@ class TitleCoder(BaseEstimator):
         ``score`` and the next two candidates; with a fitted ``confidence`` model also ``confidence*`` and
         ``decision``. Added columns are named ``output_prefix + name``; one that would overwrite an input
         column raises ``titlematch.io.columns.ColumnClash``."""
+        return self._code(X, confidence, with_features=False)[0]
+
+    def code_and_features(self, X, confidence=None) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """``(code(X, confidence), features(X))`` from one search: for a stream that writes both."""
+        return self._code(X, confidence, with_features=True)
+
+    def _code(self, X, confidence, with_features: bool) -> tuple[pd.DataFrame, pd.DataFrame | None]:
         frame = self._as_frame(X)
         source = frame.attrs.get("source_file", "<input>")
-        return add_outputs(frame, self._outputs(frame, confidence), prefix=self.output_prefix, source=source)
-
-    def _outputs(self, frame: pd.DataFrame, confidence=None) -> pd.DataFrame:
-        """The columns ``code`` adds, unprefixed, one row per row of ``frame`` (positional index)."""
         units, unit_of_row, normalized = self._units(frame)
         cands = self._unit_candidates(units)
+        outputs = self._outputs(units, unit_of_row, normalized, cands, confidence)
+        coded = add_outputs(frame, outputs, prefix=self.output_prefix, source=source)
+        return coded, (_per_record(cands, unit_of_row) if with_features else None)
+
+    def _outputs(self, units, unit_of_row, normalized, cands, confidence=None) -> pd.DataFrame:
+        """The columns ``code`` adds, unprefixed, one row per input row (positional index)."""
         if confidence is not None:
             cands = confidence.score_candidates(cands)
         out = pd.DataFrame({"title_normalized": normalized["key"].to_numpy()})
@@ -209,7 +216,9 @@ class TitleCoder(BaseEstimator):
         return out
 
     def predict(self, X) -> np.ndarray:
-        return self._outputs(self._as_frame(X))["code"].to_numpy(dtype=object)
+        units, unit_of_row, normalized = self._units(self._as_frame(X))
+        cands = self._unit_candidates(units)
+        return self._outputs(units, unit_of_row, normalized, cands)["code"].to_numpy(dtype=object)
 
     def predict_proba(self, X) -> np.ndarray:
         """Scores over ``classes_`` normalized per record (rows without candidates are all zero)."""
@@ -223,6 +232,12 @@ class TitleCoder(BaseEstimator):
 
     def score(self, X, y) -> float:
         return float(np.mean(self.predict(X) == np.asarray(y, dtype=object)))
+
+
+def _per_record(cands: pd.DataFrame, unit_of_row: np.ndarray) -> pd.DataFrame:
+    """Unit candidates fanned out to the records of each unit: ``record`` (position), best first."""
+    rows = pd.DataFrame({"record": np.arange(len(unit_of_row)), "unit": unit_of_row})
+    return rows.merge(cands, on="unit").drop(columns="unit").sort_values(["record", "rank"]).reset_index(drop=True)
 
 
 def _multiset_difference(a: list, b: list) -> list:
