@@ -213,8 +213,8 @@ class SpellingCorrector:
     def tables(self, prefix: str = "") -> dict[str, pd.DataFrame]:
         """The vocabulary as a table (word, count), for an artefact."""
         self._check_fitted()
-        return {f"{prefix}vocabulary": pd.DataFrame({"token": list(self.vocabulary_),
-                                                     "count": list(self.vocabulary_.values())})}
+        words = sorted(self.vocabulary_)  # sorted: the dict's order follows set iteration, which varies by process
+        return {f"{prefix}vocabulary": pd.DataFrame({"token": words, "count": [self.vocabulary_[w] for w in words]})}
 
     def arrays(self, prefix: str = "") -> dict[str, np.ndarray]:
         """The delete index as plain arrays, so loading does not rebuild it."""
