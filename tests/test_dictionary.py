@@ -9,7 +9,7 @@ import pytest
 
 from titlematch.io.artefact import ArtefactError
 from titlematch.coding.coder import TitleCoder
-from titlematch.coding.codes import onet_classification, to_soc_2018
+from titlematch.coding.codes import SOC_PATTERN, onet_classification, to_soc_2018
 from titlematch.coding.dictionary import TitleDictionary, context_tokens
 
 PAST = pd.DataFrame({
@@ -21,7 +21,7 @@ PAST = pd.DataFrame({
 
 
 def test_rejects_name_row_and_reason_and_counts_add_up():
-    d = TitleDictionary().fit(PAST)
+    d = TitleDictionary(code_pattern=SOC_PATTERN).fit(PAST)  # codes are opaque unless a pattern is asked for
     rejects = d.rejects.frame()
     assert set(zip(rejects["row"], rejects["column"])) == {(6, "title"), (7, "code"), (7, "year")}
     assert "empty title" in rejects.loc[rejects["row"] == 6, "reason"].iloc[0]

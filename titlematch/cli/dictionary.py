@@ -12,7 +12,12 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                               description="Build a title dictionary (and its search index) from past years of coded "
                                           "records plus the official classification titles.")
     p.add_argument("past", nargs="+", metavar="PAST_FILE", help="CSV or Parquet with title, code [, context, year]")
-    p.add_argument("--classification", metavar="FILE", help="official list (code, title); codes not on it are rejected")
+    p.add_argument("--classification", metavar="NAME|FILE",
+                   help="official list: a built-in name (isco08, onet2019, soc2018) or a file with code, title "
+                        "[, parent | level]; codes not on it are rejected")
+    p.add_argument("--code-pattern", metavar="REGEX",
+                   help="also reject codes that do not match this regular expression (codes are otherwise opaque "
+                        "strings, kept exactly as written)")
     p.add_argument("--out", required=True, metavar="DIR", help="dictionary directory to write")
     p.add_argument("--update", metavar="DIR", help="add PAST_FILE(s) to this existing dictionary instead of building anew")
     p.add_argument("--title-col", default="title")
@@ -41,8 +46,11 @@ def run(args) -> int:
             records = _read_records(path, args.title_col, args.code_col, args.context_col, args.year_col)
             dictionary = dictionary.update(records, source=args.source)
     else:
+        if args.code_pattern:
+            _check_pattern(args.code_pattern)
         dictionary = TitleDictionary.from_files(args.past, args.classification, half_life=args.half_life,
-                                                code_level=args.code_level, source=args.source, **cols)
+                                                code_level=args.code_level, code_pattern=args.code_pattern,
+                                                source=args.source, **cols)
     stages.step("records counted")
     coder = TitleCoder.from_dictionary(dictionary)
     stages.step("search index and classifier built")
@@ -56,3 +64,13 @@ def run(args) -> int:
     if meta["rows"]["rejected"]:
         print(f"rejected rows with reasons: {Path(args.out) / 'rejects.csv'}")
     return 0
+
+
+def _check_pattern(pattern: str) -> None:
+    import re
+
+    from ..io import InputError
+    try:
+        re.compile(pattern)
+    except re.error as exc:
+        raise InputError(f"--code-pattern {pattern!r} is not a regular expression: {exc}") from None

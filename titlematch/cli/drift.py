@@ -63,15 +63,16 @@ def run(args) -> int:
         name = str(Path(path))
         frames.append(prepare(read_table(path, encoding=args.encoding, rejects=rejects), name, rejects))
     old, new = frames
-    vocabulary = known_keys = None
+    vocabulary = known_keys = group_of = None
     if args.dictionary:
         from ..coding.dictionary import TitleDictionary
         dictionary = TitleDictionary.load(args.dictionary)
         vocabulary = dictionary.vocabulary.index
         known_keys = dictionary.entries["key"]
+        group_of = dictionary.hierarchy.top_of
     try:
         result = measure_drift(old, new, vocabulary=vocabulary, known_keys=known_keys, threshold=args.threshold,
-                               limits=limits, top=args.top)
+                               limits=limits, top=args.top, group_of=group_of)
     except ValueError as exc:
         raise InputError(f"{args.old} / {args.new}: {exc}") from None
     if args.dictionary:

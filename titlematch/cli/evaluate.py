@@ -27,6 +27,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                              "(default 0)")
     parser.add_argument("--level", choices=SOC_LEVELS, default="as_given",
                         help="compare codes at this SOC level (default: as given)")
+    parser.add_argument("--classification", metavar="NAME|FILE|DICTIONARY_DIR", default=None,
+                        help="group codes by this classification's hierarchy: a built-in name (isco08, onet2019, "
+                             "soc2018), a classification file or a dictionary directory (default: the codes' shape)")
     parser.add_argument("--bootstrap", type=int, default=1000, metavar="N", help="bootstrap resamples (default 1000)")
     parser.add_argument("--seed", type=int, default=0, help="random seed of the bootstrap (default 0)")
     parser.add_argument("--bins", type=int, default=15, help="confidence bins for calibration (default 15)")
@@ -57,7 +60,7 @@ def run(args) -> int:
     result = evaluate(coded, gold, min_accuracy=args.min_accuracy, margin=args.margin, n_boot=args.bootstrap,
                       seed=args.seed, n_bins=args.bins, level=args.level, top=args.top,
                       coded_name=str(Path(args.coded)), gold_name=str(Path(args.gold)), rejects=rejects,
-                      quiet=args.quiet)
+                      quiet=args.quiet, hierarchy=_hierarchy(args.classification))
     if args.decisions:
         from ..reporting.evaluate import add_agreement
         from ..review.decisions import read_journal
@@ -75,3 +78,13 @@ def run(args) -> int:
     summary.set(**counts)
     summary.print()
     return 0
+
+
+def _hierarchy(name: str | None):
+    if name is None:
+        return None
+    if (Path(name) / "manifest.json").is_file():
+        from ..coding.dictionary import TitleDictionary
+        return TitleDictionary.load(name).hierarchy
+    from ..coding.classification import Classification
+    return Classification.resolve(name)

@@ -16,6 +16,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--dictionary", metavar="DIR", help="fill official titles of the 2nd and 3rd candidates")
     p.add_argument("--title-col", default="title")
     p.add_argument("--all", action="store_true", help="queue every record, not only the referred ones")
+    p.add_argument("--by-group", action="store_true",
+                   help="order by the top group of the first candidate first (coders split by major group)")
     return p
 
 
@@ -26,11 +28,13 @@ def run(args) -> int:
 
     summary = Summary("queue", args.quiet)
     coded = read_table(args.coded, required=("title_normalized", "code"))
-    titles = None
+    titles = group_of = None
     if args.dictionary:
         from ..coding.dictionary import TitleDictionary
-        titles = TitleDictionary.load(args.dictionary).code_titles()
-    queue = referral_queue(coded, titles, title_col=args.title_col, referred_only=not args.all)
+        dictionary = TitleDictionary.load(args.dictionary)
+        titles, group_of = dictionary.code_titles(), dictionary.hierarchy.top_of
+    queue = referral_queue(coded, titles, title_col=args.title_col, referred_only=not args.all,
+                           group_of=group_of, by_group=args.by_group)
     write_table(escape_frame(queue), args.out)
     summary.set(rows_in=len(coded), queued_titles=len(queue), records_covered=int(queue["records"].sum()))
     summary.print()

@@ -24,7 +24,8 @@ import pandas as pd
 from unidecode import unidecode
 
 from ..io.artefact import load_artefact, save_artefact
-from .codes import SOC_PATTERN, to_soc_2018
+from .classification import COLUMNS as CLASSIFICATION_COLUMNS, Classification
+from .codes import to_soc_2018
 from ..io import ROW_COLUMN, InputError, Rejects, file_sha256, read_table, require_columns
 from ..normalize.title import normalize_titles
 
@@ -69,8 +70,9 @@ class TitleDictionary:
     ----------
     half_life : float
         Years after which a record counts half as much as one from the newest year.
-    code_pattern : str
-        Regular expression every code must match (default SOC ``NN-NNNN`` with optional ``.NN``).
+    code_pattern : str or None
+        Regular expression every code must match; ``None`` (default) takes codes as opaque strings,
+        checked only against the classification when there is one.
     code_level : {"as-is", "soc"}
         ``"soc"`` maps O*NET-SOC codes to their SOC 2018 detailed occupation on the way in.
 
@@ -83,7 +85,7 @@ class TitleDictionary:
     '29-1141'
     """
 
-    def __init__(self, half_life: float = 3.0, code_pattern: str = SOC_PATTERN, code_level: str = "as-is"):
+    def __init__(self, half_life: float = 3.0, code_pattern: str | None = None, code_level: str = "as-is"):
         self.half_life = half_life
         self.code_pattern = code_pattern
         self.code_level = code_level
@@ -97,6 +99,8 @@ class TitleDictionary:
                                    "count": pd.Series(dtype="int64")})
         self.official = pd.DataFrame({"key": pd.Series(dtype=str), "code": pd.Series(dtype=str)})
         self.catalogue = pd.DataFrame({"code": pd.Series(dtype=str), "title": pd.Series(dtype=str)})
+        # the whole classification (groups too): code, title, parent, level, leaf
+        self.classification = pd.DataFrame({c: pd.Series(dtype=str) for c in CLASSIFICATION_COLUMNS})
         self.provenance: list[dict] = []
         self.rejects = Rejects()
         self._derived: dict = {}
@@ -106,7 +110,8 @@ class TitleDictionary:
             source: str = "past records", official_weight: int = 1) -> "TitleDictionary":
         """Build from coded records (a DataFrame or a list of DataFrames); returns self.
 
-        Records need ``title`` and ``code``; ``context`` and ``year`` are optional. Rows with an
+        Records need ``title`` and ``code``; ``context`` and ``year`` are optional. ``classification``
+        is a ``Classification`` or a table ``code, title`` [, ``parent`` | ``level``]. Rows with an
         empty title, an invalid code, a code outside ``classification`` or an unparseable year go
         to ``rejects`` with their reason; the provenance counts rows in = kept + rejected.
         """
@@ -126,22 +131,22 @@ class TitleDictionary:
         frames = [_read_records(p, title_col, code_col, context_col, year_col) for p in paths]
         classification = None
         if classification_path is not None:
-            classification = read_table(classification_path, required=("code", "title"))
+            classification = Classification.resolve(classification_path, options.get("code_pattern"))
         settings = {k: options.pop(k) for k in ("half_life", "code_pattern", "code_level") if k in options}
         return cls(**settings).fit(frames, classification, **options)
 
-    def _set_classification(self, classification: pd.DataFrame, official_weight: int) -> None:
-        require_columns(classification, ("code", "title"), classification.attrs.get("source_file", "classification"))
-        table = classification[["code", "title"]].astype(str).copy()
-        table["code"] = table["code"].str.strip()
-        if self.code_level == "soc":
-            table = table[table["code"].str.endswith(".00")].copy()
-            table["code"] = table["code"].map(to_soc_2018)
-            table = table.drop_duplicates("code")
-        bad = ~table["code"].str.match(self.code_pattern)
-        if bad.any():
-            raise InputError(f"classification: {int(bad.sum())} code(s) do not match {self.code_pattern!r}, "
-                             f"e.g. {table.loc[bad, 'code'].iloc[0]!r}")
+    def _set_classification(self, classification, official_weight: int) -> None:
+        if not isinstance(classification, Classification):
+            source = classification.attrs.get("source_file", "classification")
+            require_columns(classification, ("code", "title"), source)
+            table = classification.copy()
+            if self.code_level == "soc":
+                table = table[table["code"].astype(str).str.strip().str.endswith(".00")].copy()
+                table["code"] = table["code"].astype(str).str.strip().map(to_soc_2018)
+                table = table.drop_duplicates("code")[["code", "title"]]
+            classification = Classification.from_frame(table, source=source, code_pattern=self.code_pattern)
+        self.classification = classification.table.copy()
+        table = classification.leaves()
         self.catalogue = table.reset_index(drop=True)
         keys = normalize_titles(table["title"])["key"]
         official = pd.DataFrame({"key": keys.values, "code": table["code"].values})
@@ -150,6 +155,16 @@ class TitleDictionary:
             extra = self.official.assign(year=UNDATED, count=int(official_weight))
             self.counts = _sum_counts(self.counts, extra, ["key", "code", "year"])
         self._derived.clear()
+
+    @property
+    def hierarchy(self) -> Classification:
+        """The classification's hierarchy; without one, the codes seen, grouped by their own shape."""
+        if "hierarchy" not in self._derived:
+            if len(self.classification):
+                self._derived["hierarchy"] = Classification(self.classification)
+            else:
+                self._derived["hierarchy"] = Classification.implicit(self.counts["code"].unique())
+        return self._derived["hierarchy"]
 
     def _add(self, frame: pd.DataFrame, *, source: str, file: str) -> None:
         require_columns(frame, ("title", "code"), file)
@@ -167,12 +182,17 @@ class TitleDictionary:
             code = code.map(lambda c: to_soc_2018(c) if c.endswith(".00") or len(c) == 7 else c)
         normalized = normalize_titles(title)
         keep = pd.Series(True, index=frame.index)
-        checks = [
-            (normalized["key"].eq(""), "title", "empty title"),
-            (~code.str.match(self.code_pattern), "code", f"code does not match {self.code_pattern}"),
-        ]
+        checks = [(normalized["key"].eq(""), "title", "empty title"), (code.eq(""), "code", "empty code")]
+        well_formed = code.ne("")
+        if self.code_pattern:
+            bad = well_formed & ~code.str.match(self.code_pattern)
+            checks.append((bad, "code", f"code does not match {self.code_pattern}"))
+            well_formed &= ~bad
         if len(self.catalogue):
-            checks.append((code.str.match(self.code_pattern) & ~code.isin(set(self.catalogue["code"])), "code",
+            groups = set(self.classification.loc[~self.classification["leaf"].astype(bool), "code"])
+            is_group = well_formed & code.isin(groups)
+            checks.append((is_group, "code", "code is a group of the classification, not one of its detailed codes"))
+            checks.append((well_formed & ~is_group & ~code.isin(set(self.catalogue["code"])), "code",
                            "code not in the classification"))
         year = pd.Series(UNDATED, index=frame.index, dtype="int64")
         if "year" in frame.columns:
@@ -217,6 +237,7 @@ class TitleDictionary:
     def copy(self) -> "TitleDictionary":
         new = TitleDictionary(self.half_life, self.code_pattern, self.code_level)
         new.counts, new.context_counts = self.counts.copy(), self.context_counts.copy()
+        new.classification = self.classification.copy()
         new.units = self.units.copy()
         new.official, new.catalogue = self.official.copy(), self.catalogue.copy()
         new.provenance = [dict(p) for p in self.provenance]
@@ -228,6 +249,7 @@ class TitleDictionary:
         holds a positive count to keep, plus the official titles: the base for held-out scoring."""
         new = TitleDictionary(self.half_life, self.code_pattern, self.code_level)
         new.official, new.catalogue = self.official.copy(), self.catalogue.copy()
+        new.classification = self.classification.copy()
         units = self.units.assign(count=np.asarray(keep_units, dtype="int64"))
         units = units[units["count"] > 0]
         new.units = units.reset_index(drop=True)
@@ -317,7 +339,7 @@ class TitleDictionary:
     def tables(self) -> dict[str, pd.DataFrame]:
         return {"counts": self.counts, "context_counts": self.context_counts, "units": self.units,
                 "official": self.official,
-                "catalogue": self.catalogue}
+                "catalogue": self.catalogue, "classification": self.classification}
 
     def meta(self) -> dict:
         rows_in = sum(p["rows_in"] for p in self.provenance)
@@ -351,6 +373,11 @@ class TitleDictionary:
                 if col in ("year", "count"):
                     table[col] = table[col].astype("int64")
             setattr(self, name, table)
+        if "classification" in art.tables:  # dictionaries saved before classifications had a hierarchy lack it
+            table = art.tables["classification"]
+            table["level"] = table["level"].astype("int64")
+            table["leaf"] = table["leaf"].astype(bool)
+            self.classification = table[CLASSIFICATION_COLUMNS]
         self.provenance = art.meta.get("provenance", [])
         return self
 

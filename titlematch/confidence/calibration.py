@@ -83,7 +83,8 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     stages.step("threshold")
     stages.close()
     accepted = conf >= model.threshold_
-    groups = per_major_group(expert[accepted], machine[accepted]) if accepted.any() else pd.DataFrame()
+    groups = (per_major_group(expert[accepted], machine[accepted], group_of=coder.dictionary_.hierarchy.top_of)
+              if accepted.any() else pd.DataFrame())
     report = {
         "label_source": model.source_, "evaluated_on": evaluated_on, "records": int(len(top)),
         "base_model": model.base_name_, "cv_log_loss": model.cv_log_loss_,

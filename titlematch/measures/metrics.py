@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 from sklearn import metrics as skm
 
+from ..coding.classification import implicit_top
 from ..coding.codes import SOC_LEVELS, to_soc_2018
 
 _SOC_PATTERN = re.compile(r"^\s*(\d{2})-(\d{4})(?:\.(\d{2}))?\s*$")
@@ -180,6 +181,7 @@ def code_at_level(codes, level: str = "as_given") -> pd.Series:
 
 def major_group(code):
     """The SOC major group: the first two digits of a code ("15-1252.00" -> "15"); "" if it has none.
+    Other classifications group by their own hierarchy (``Classification.top_of``).
 
     Accepts one code or an array of codes (then returns a Series).
     """
@@ -189,15 +191,19 @@ def major_group(code):
     return pd.Series([major_group(c) for c in as_code_array(code, "code")], dtype=object)
 
 
-def per_major_group(truth, predicted, manual=None) -> pd.DataFrame:
-    """Accuracy by the true code's major group.
+def per_major_group(truth, predicted, manual=None, group_of=None) -> pd.DataFrame:
+    """Accuracy by the true code's major (top) group.
 
+    ``group_of`` maps an array of codes to their groups, e.g. ``Classification.top_of`` of the
+    dictionary's classification; by default a code's own shape decides
+    (``classification.implicit_top``: a SOC code's first two digits, else its first character).
     Returns a DataFrame ``major_group, records, share, accuracy`` (plus ``manual_accuracy``
     when manual codes are given), largest groups first; records whose true code has no
     major group are kept under ``""``.
     """
     t, p = _paired_labels(truth, predicted)
-    frame = pd.DataFrame({"major_group": major_group(t).to_numpy(), "correct": t == p})
+    groups = np.asarray(group_of(t) if group_of is not None else [implicit_top(c) for c in t], dtype=object)
+    frame = pd.DataFrame({"major_group": groups, "correct": t == p})
     if manual is not None:
         _, m = _paired_labels(truth, manual)
         frame["manual_correct"] = t == m

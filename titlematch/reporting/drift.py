@@ -36,7 +36,7 @@ from ..confidence.routing import read_confidence, route
 from . import htmlpage
 from ..measures import plots
 from ..io import ROW_COLUMN, InputError, Rejects, write_table
-from ..measures.metrics import major_group
+from ..coding.classification import implicit_top
 
 PSI_EPS = 1e-4
 MEASURE_COLUMNS = ["measure", "old", "new", "value", "limit", "flagged", "meaning"]
@@ -233,7 +233,7 @@ def _automation(frame: pd.DataFrame, threshold: float | None) -> float | None:
 
 def measure_drift(old: pd.DataFrame, new: pd.DataFrame, *, vocabulary: Iterable[str] | None = None,
                   known_keys: Iterable[str] | None = None, threshold: float | None = None,
-                  limits: DriftLimits | None = None, top: int = 20) -> DriftResult:
+                  limits: DriftLimits | None = None, top: int = 20, group_of=None) -> DriftResult:
     """Compare two periods.
 
     Parameters
@@ -243,6 +243,7 @@ def measure_drift(old: pd.DataFrame, new: pd.DataFrame, *, vocabulary: Iterable[
     vocabulary, known_keys : the dictionary's tokens and normalized titles; when None the
         old frame's own tokens and titles stand in.
     threshold : acceptance threshold for the expected automation share (else ``decision``).
+    group_of : maps codes to their top group (``Classification.top_of``); default: the codes' shape.
     limits : flag limits.
     top : rows of the new-titles table.
 
@@ -274,7 +275,9 @@ def measure_drift(old: pd.DataFrame, new: pd.DataFrame, *, vocabulary: Iterable[
         rows.append(_row(measure, old_value, new_value, new_value, limit, f"new records against {reference}"))
     code_shares = None
     if "code" in old.columns and "code" in new.columns:
-        groups = category_shares(major_group(old["code"]), major_group(new["code"]))
+        top_of = group_of or (lambda codes: pd.Series([implicit_top(c) for c in codes.fillna("").astype(str)]))
+        groups = category_shares(pd.Series(top_of(old["code"].fillna("").astype(str)), dtype=object),
+                                 pd.Series(top_of(new["code"].fillna("").astype(str)), dtype=object))
         code_shares = groups
         rows.append(_row("code mix PSI (major groups)", None, None,
                          population_stability_index(groups["old_count"], groups["new_count"]), limits.psi,
@@ -353,7 +356,7 @@ def write_drift_report(result: DriftResult, out_dir: str | os.PathLike) -> dict[
         written["code_shares"] = write_table(result.code_shares, out / "code_shares.csv")
         written["code_figure"] = plots.plot_share_shift(result.code_shares, out / "code_shares.png")
         parts.append(htmlpage.section("Code mix, old and new", htmlpage.figure(
-            written["code_figure"], "major group shares", "Share of records by SOC major group. Data: "
+            written["code_figure"], "major group shares", "Share of records by major (top) group of the classification. Data: "
                                                           "code_shares.csv.")))
     written["report"] = htmlpage.write_page(htmlpage.page("Drift between two periods", parts, facts=result.facts),
                                             out / "drift.html")

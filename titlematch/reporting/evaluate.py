@@ -202,7 +202,7 @@ def _difference(a, b):
 def evaluate(coded: pd.DataFrame, gold: pd.DataFrame, *, min_accuracy: float | None = None, margin: float = 0.0,
              n_boot: int = 1000, seed: int = 0, n_bins: int = 15, level: str = "as_given", top: int = 20,
              coded_name: str = "coded file", gold_name: str = "gold file", rejects: Rejects | None = None,
-             quiet: bool = True) -> Evaluation:
+             quiet: bool = True, hierarchy=None) -> Evaluation:
     """Evaluate coded output against a gold sample.
 
     Parameters
@@ -215,6 +215,8 @@ def evaluate(coded: pd.DataFrame, gold: pd.DataFrame, *, min_accuracy: float | N
     level : compare codes at this SOC level (``metrics.code_at_level``), e.g. ``"detailed"``
         when one file has O*NET-SOC codes and the other SOC codes.
     top : rows of the confusion table.
+    hierarchy : a ``Classification`` whose groups the results by group and the parent-group accuracy
+        use; by default the codes' own shape (``classification.implicit_parent`` / ``implicit_top``).
 
     Returns
     -------
@@ -252,6 +254,11 @@ def evaluate(coded: pd.DataFrame, gold: pd.DataFrame, *, min_accuracy: float | N
                      metrics.bootstrap_ci(_mean_rows, machine_right, n_boot=n_boot, seed=seed, vectorized=True),
                      "top code against the expert's code"),
             _measure("machine macro-F1", metrics.macro_f1(expert, machine), n, None, "mean F1 over codes")]
+    parent_of = hierarchy.parent_of if hierarchy is not None else _implicit_parents
+    parent_right = (parent_of(expert.to_numpy()) == parent_of(machine.to_numpy())).astype(float)
+    rows.append(_measure("machine parent-group accuracy", float(parent_right.mean()), n,
+                         metrics.bootstrap_ci(_mean_rows, parent_right, n_boot=n_boot, seed=seed, vectorized=True),
+                         "the group directly above the code (e.g. ISCO-08 minor group, SOC broad occupation)"))
     if has_manual:
         manual = records["manual_code"]
         manual_right = (expert == manual).to_numpy(dtype=float)
@@ -284,12 +291,18 @@ def evaluate(coded: pd.DataFrame, gold: pd.DataFrame, *, min_accuracy: float | N
             rows.append(_measure("accuracy of records accepted in the coded file",
                                  float(machine_right[accepted].mean()), int(accepted.sum())))
     summary = pd.DataFrame(rows)
-    groups = metrics.per_major_group(expert, machine, records.get("manual_code"))
+    groups = metrics.per_major_group(expert, machine, records.get("manual_code"),
+                                     group_of=hierarchy.top_of if hierarchy is not None else None)
     confusion = _titled(metrics.confusions(expert, machine, top=top), records)
     facts = {"gold records": f"{len(gold):,}", "records evaluated": f"{n:,}", "records set aside": f"{len(rejects):,}",
              "joined by": method, "codes compared at level": level, "bootstrap resamples": f"{n_boot:,}",
              "seed": seed}
     return Evaluation(records, summary, groups, confusion, method, choice, reliability, facts, notes, rejects, n_bins)
+
+
+def _implicit_parents(codes) -> np.ndarray:
+    from ..coding.classification import implicit_parent
+    return np.array([implicit_parent(c) for c in codes], dtype=object)
 
 
 def _choice_rows(choice: ThresholdChoice, records: pd.DataFrame, n: int) -> list[dict]:
@@ -380,7 +393,8 @@ def write_report(evaluation: Evaluation, out_dir: str | os.PathLike) -> dict[str
             "The coded file has no confidence column, so no threshold can be chosen; code with a confidence "
             "model to get one.")))
     parts.append(htmlpage.section("Results by major group", htmlpage.paragraph(
-        "Major group of the expert's code (first two digits). Data: major_groups.csv."),
+        "Top group of the expert's code in the classification (without one: a SOC code's first two digits, "
+        "else its first character). Data: major_groups.csv."),
         htmlpage.table(ev.major_groups, {"records": ",", "share": ".1%", "accuracy": ".1%",
                                          "manual_accuracy": ".1%"})))
     if ev.agreement is not None:

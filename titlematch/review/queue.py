@@ -14,12 +14,13 @@ import re
 import numpy as np
 import pandas as pd
 
+from ..coding.classification import implicit_top
 from ..coding.dictionary import TitleDictionary
 from ..io import ROW_COLUMN, Rejects, require_columns
 from ..confidence.routing import read_confidence
 from ..io.columns import add_outputs
 
-QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context",
+QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context", "group",
                  "code", "code_title", "confidence", "code_2", "code_2_title", "confidence_2",
                  "code_3", "code_3_title", "confidence_3", "coder_code", "coder_remark"]
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
@@ -49,11 +50,14 @@ def escape_frame(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 def referral_queue(coded: pd.DataFrame, code_titles: dict | None = None, *, title_col: str = "title",
-                   referred_only: bool = True) -> pd.DataFrame:
+                   referred_only: bool = True, group_of=None, by_group: bool = False) -> pd.DataFrame:
     """One row per distinct normalized title among the referred records, most work first.
 
     Order: records covered x uncertainty (1 - confidence; 1 - score without a model), so the
-    coders' first hour goes where it settles the most records.
+    coders' first hour goes where it settles the most records. ``group`` is the top group of the
+    first candidate in the classification (``group_of``, e.g. ``Classification.top_of``; by default
+    the code's shape); ``by_group`` orders by group first, for offices whose coders split the work
+    by major group.
     """
     require_columns(coded, ("title_normalized", "code"), "coded file")
     work = coded
@@ -85,9 +89,13 @@ def referral_queue(coded: pd.DataFrame, code_titles: dict | None = None, *, titl
             out[label] = first["code_title"].fillna("").to_numpy()
         conf = first.get(conf_col + suffix)
         out["confidence" + suffix] = conf.to_numpy() if conf is not None else np.nan
+    top_of = group_of or (lambda codes: [implicit_top(c) for c in codes])
+    out["group"] = np.asarray(top_of(out["code"].tolist()), dtype=object)
     uncertainty = 1 - out["confidence"].fillna(0).clip(0, 1)
     out["priority"] = out["records"] * uncertainty
-    out = out.sort_values(["priority", "records", "title_normalized"], ascending=[False, False, True])
+    order = ["priority", "records", "title_normalized"]
+    out = out.sort_values((["group"] if by_group else []) + order,
+                          ascending=([True] if by_group else []) + [False, False, True], kind="stable")
     out = out.drop(columns="priority").reset_index(drop=True)
     out.insert(0, "queue_id", np.arange(1, len(out) + 1))
     out["coder_code"] = ""
