@@ -66,9 +66,8 @@ def _corrector(dictionary: TitleDictionary) -> SpellingCorrector:
     for word, count in vocabulary[vocabulary < RARE_WORD_COUNT].items():
         if len(word) < frequent.min_length:
             continue
-        near = frequent.candidates(word)
-        near = near[(near["distance"] == 1) & (near["word"] != word)]
-        if len(near) and near["count"].iloc[0] >= MISSPELLING_RATIO * count:
+        near = [c for d, c, w in frequent.nearest(word) if d == 1 and w != word]
+        if near and near[0] >= MISSPELLING_RATIO * count:
             suspects.append(word)
     return SpellingCorrector().fit(vocabulary.drop(suspects))
 

@@ -4,8 +4,8 @@ A classification file is ``code, title`` with an optional ``parent`` (the code o
 code belongs to) or ``level`` (1 for the top groups, growing downwards). Codes are opaque
 strings, kept exactly as written: leading zeros (ISCO-08 ``0110``), dots (O*NET-SOC
 ``29-1141.01``), letters. The hierarchy comes from ``parent`` when given; otherwise a code's
-parent is the longest other code it starts with (ISCO-08 ``2166`` -> ``216``, NAICS), or the
-same-length code with trailing zeros it extends (SOC ``29-1141`` -> ``29-1140`` -> ``29-1100``
+parent is the longest other code it starts with (ISCO-08 ``2166`` -> ``216``, NAICS), or, for
+SOC codes, the zero-padded group code it extends (``29-1141`` -> ``29-1140`` -> ``29-1100``
 -> ``29-0000``); a code with no such group on the list gets an implicit one by the same rules
 (``implicit_parent``). The codes records are coded to are the leaves: codes no other code
 names as its parent.
@@ -59,10 +59,10 @@ def implicit_parent(code: str) -> str:
         major, rest, onet = m.groups()
         if onet is not None:
             return f"{major}-{rest}"
-        digits = rest.rstrip("0")
+        digits = rest.rstrip("0")  # detailed: 4 significant digits, broad 3, minor 1-2, major none
         if not digits:
             return ""
-        return f"{major}-{digits[:-1].ljust(4, '0')}"
+        return f"{major}-{rest[:{4: 3, 3: 2}.get(len(digits), 0)].ljust(4, '0')}"
     shorter = code[:-1].rstrip(_SEPARATORS)
     return shorter
 
@@ -79,9 +79,12 @@ def implicit_top(code: str) -> str:
 
 
 def _stem(code: str) -> str:
-    """A group code without its zero padding (``29-1100`` -> ``29-11``), for same-length parents.
-    Zeros after a dot are a code of their own (O*NET-SOC ``29-1141.00`` is an occupation, not a group)."""
-    return code if "." in code else code.rstrip("0").rstrip(_SEPARATORS)
+    """A SOC group code without its zero padding (``29-1100`` -> ``29-11``), for same-length parents.
+    Only SOC codes pad groups with zeros: in NOC, ISCO-08 or NAICS a trailing zero is a digit like
+    any other (NOC ``00010`` Legislators is no group of ``00012``), and O*NET-SOC ``29-1141.00`` is
+    an occupation, not a group. Other padded schemes give a ``parent`` column."""
+    m = _SOC.match(code)
+    return code if not m or m.group(3) is not None else code.rstrip("0").rstrip(_SEPARATORS)
 
 
 def _prefix_parents(codes: list[str]) -> dict[str, str]:

@@ -65,15 +65,52 @@ class _Trees:
         model = HistGradientBoostingClassifier(max_iter=100, learning_rate=0.1, max_leaf_nodes=15,
                                                min_samples_leaf=40, l2_regularization=1.0, random_state=0,
                                                early_stopping=False)
-        # one thread: identical results on any machine, and no OpenMP oversubscription on a busy one
-        with threadpool_limits(1):
-            model.fit(X, y, sample_weight=w)
+        # The features are binned at weighted quantiles here, in one sorted pass per feature: the
+        # model then sees at most 255 values per feature and bins them as they are, which is far
+        # quicker than its own weighted binning (one weighted percentile per bin edge).
+        edges, offsets = _quantile_edges(X, w)
+        with threadpool_limits(1):  # one thread: identical results anywhere, no oversubscription
+            model.fit(_to_bins(X, edges, offsets), y, sample_weight=w)
         self.model = model
-        self.arrays = _export_trees(model)
+        self.arrays = _export_trees(model) | {"bin_edges": edges, "bin_offsets": offsets}
         return self
 
     def raw(self, X):
+        if "bin_edges" in self.arrays:
+            X = _to_bins(np.asarray(X, dtype=np.float64), self.arrays["bin_edges"], self.arrays["bin_offsets"])
         return _evaluate_trees(self.arrays, X)
+
+
+MAX_BINS = 255
+
+
+def _quantile_edges(X: np.ndarray, w: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """Per feature, bin edges at weighted quantiles (none when it has few distinct values)."""
+    w = np.ones(len(X)) if w is None else np.asarray(w, dtype=np.float64)
+    parts = []
+    for j in range(X.shape[1]):
+        col = X[:, j]
+        ok = ~np.isnan(col) & (w > 0)
+        if len(np.unique(col[ok])) <= MAX_BINS:
+            parts.append(np.empty(0))
+            continue
+        order = np.argsort(col[ok], kind="stable")
+        sorted_values, cum = col[ok][order], np.cumsum(w[ok][order])
+        at = np.searchsorted(cum / cum[-1], np.linspace(0, 1, MAX_BINS + 1)[1:-1], side="left")
+        parts.append(np.unique(sorted_values[np.minimum(at, len(cum) - 1)]))
+    offsets = np.cumsum([0] + [len(p) for p in parts]).astype(np.int64)
+    return np.concatenate(parts) if parts else np.empty(0), offsets
+
+
+def _to_bins(X: np.ndarray, edges: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """Each binned feature replaced by its bin number (a value on an edge joins the lower bin); NaN stays."""
+    out = np.array(X, dtype=np.float64, copy=True)
+    for j in range(X.shape[1]):
+        e = edges[offsets[j]:offsets[j + 1]]
+        if len(e):
+            col = out[:, j]
+            out[:, j] = np.where(np.isnan(col), np.nan, np.searchsorted(e, col, side="left"))
+    return out
 
 
 def _export_trees(model: HistGradientBoostingClassifier) -> dict[str, np.ndarray]:
@@ -157,8 +194,12 @@ def apply_calibration(cal: dict, raw: np.ndarray) -> np.ndarray:
 def fit_maps(raw: np.ndarray, y: np.ndarray, w: np.ndarray | None, top: np.ndarray, method: str) -> dict:
     """One map for each record's first candidate (the confidence that decides) and one for the
     others: a first candidate with a given raw score is right more often than a runner-up with it."""
-    maps = {"top": fit_calibration(raw[top], y[top], None if w is None else w[top], method)}
     rest = ~top
+    if not 0 < y[top].sum() < top.sum():
+        # first candidates all right (or all wrong), as on a small, easy gold sample: a map fitted on
+        # them alone would be flat and tie every candidate; all candidates together still rank
+        top = np.ones(len(y), dtype=bool)
+    maps = {"top": fit_calibration(raw[top], y[top], None if w is None else w[top], method)}
     if rest.any() and 0 < y[rest].sum() < rest.sum():
         maps["rest"] = fit_calibration(raw[rest], y[rest], None if w is None else w[rest], method)
     else:

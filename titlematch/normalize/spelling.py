@@ -172,13 +172,22 @@ class SpellingCorrector:
 
     def candidates(self, token: str) -> pd.DataFrame:
         """Vocabulary words within ``max_distance`` of ``token``: columns word, distance, count."""
+        rows = self.nearest(token)
+        return pd.DataFrame({"word": pd.Series([r[2] for r in rows], dtype=object),
+                             "distance": pd.Series([r[0] for r in rows], dtype="int64"),
+                             "count": pd.Series([r[1] for r in rows], dtype="int64")})
+
+    def nearest(self, token: str) -> list[tuple[int, int, str]]:
+        """``candidates`` as ``(distance, count, word)`` tuples in the same order, without a DataFrame:
+        for loops over many words (a dictionary build checks every rare word)."""
         self._check_fitted()
-        words = self._candidate_words(token.lower())
-        distances = [DamerauLevenshtein.distance(token.lower(), w, score_cutoff=self.max_distance) for w in words]
-        found = pd.DataFrame({"word": words, "distance": distances,
-                              "count": [self.vocabulary_[w] for w in words]})
-        found = found[found["distance"] <= self.max_distance]
-        return found.sort_values(["distance", "count", "word"], ascending=[True, False, True]).reset_index(drop=True)
+        word = token.lower()
+        rows = []
+        for w in self._candidate_words(word):
+            d = DamerauLevenshtein.distance(word, w, score_cutoff=self.max_distance)
+            if d <= self.max_distance:
+                rows.append((d, -self.vocabulary_[w], w))
+        return [(d, -c, w) for d, c, w in sorted(rows)]
 
     def _candidate_words(self, word: str) -> list[str]:
         deletes = _deletes(word[:PREFIX_LENGTH], self.max_distance)

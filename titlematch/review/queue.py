@@ -119,13 +119,13 @@ def read_decisions(queue: pd.DataFrame, dictionary: TitleDictionary, *, source: 
     decided = queue[queue["coder_code"].fillna("").astype(str).str.strip() != ""].copy()
     decided["coder_code"] = decided["coder_code"].astype(str).str.strip()
     known = set(dictionary.catalogue["code"]) or set(dictionary.entries["code"])
-    pattern = re.compile(dictionary.code_pattern)
+    pattern = re.compile(dictionary.code_pattern) if dictionary.code_pattern else None
     records = pd.to_numeric(decided["records"], errors="coerce")
     ok = pd.Series(True, index=decided.index)
     for idx, row in decided.iterrows():
         code, n = row["coder_code"], records[idx]
         reason = None
-        if not pattern.match(code):
+        if pattern is not None and not pattern.match(code):
             reason = f"code {code!r} does not match {dictionary.code_pattern}"
         elif known and code not in known:
             reason = f"code {code!r} is not in the dictionary's catalogue"
