@@ -11,6 +11,7 @@ The labels are a benchmark: they are read here, by benchmarks and tests, never b
 from __future__ import annotations
 
 import hashlib
+import os
 import time
 from pathlib import Path
 
@@ -20,7 +21,17 @@ from sklearn.feature_extraction.text import TfidfVectorizer
 from sklearn.linear_model import LogisticRegression
 from sklearn.pipeline import make_pipeline, make_union
 
-REFERENCE = Path(__file__).resolve().parents[2] / "shared" / "reference" / "esco"
+def _reference() -> Path:
+    """The shared reference tables: $TITLEMATCH_REFERENCE, else ../shared/reference beside the repository."""
+    if os.environ.get("TITLEMATCH_REFERENCE"):
+        return Path(os.environ["TITLEMATCH_REFERENCE"]) / "esco"
+    for root in (Path(__file__).resolve().parents[2], Path("/work")):
+        if (root / "shared" / "reference" / "esco").is_dir():
+            return root / "shared" / "reference" / "esco"
+    return Path(__file__).resolve().parents[2] / "shared" / "reference" / "esco"
+
+
+REFERENCE = _reference()
 DEV_LABELS = REFERENCE / "occupation_labels_dev.csv"
 YEARS = (2022, 2023, 2024)
 
