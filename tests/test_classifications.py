@@ -77,7 +77,7 @@ def test_bad_classification_files_name_row_and_column(tmp_path):
 def test_records_coded_to_a_group_or_an_unknown_code_are_rejected_with_the_reason():
     past = pd.DataFrame({"title": ["fleet commander", "naval officer", "graphic designer", "web designer"],
                          "code": ["0110", "011", "2166", "99999"]})
-    d = TitleDictionary.build(past, Classification.builtin("isco08"))
+    d = TitleDictionary().fit(past, Classification.builtin("isco08"))
     reasons = d.rejects.frame().set_index("row")["reason"].to_dict()
     assert reasons == {2: "code is a group of the classification, not one of its detailed codes",
                        4: "code not in the classification"}
@@ -93,7 +93,7 @@ def _cli_year(tmp_path: Path, past: pd.DataFrame, gold: pd.DataFrame, new: pd.Da
               *extra: str) -> dict:
     """dictionary -> calibrate -> code -> evaluate -> queue -> feedback, as an office runs a year."""
     files = {name: _write(frame, tmp_path / f"{name}.csv") for name, frame in
-             (("past", past), ("gold", gold), ("new", new))}
+             (("past", past), ("gold", gold), ("new", new[["title"]]), ("gold_titles", gold[["title"]]))}
     out = {k: str(tmp_path / k) for k in ("dictionary", "model", "evaluation", "dictionary2")}
     out |= {"coded": str(tmp_path / "coded.csv"), "queue": str(tmp_path / "queue.csv")}
     assert main(["dictionary", files["past"], "--classification", classification, "--out", out["dictionary"],
@@ -103,7 +103,7 @@ def _cli_year(tmp_path: Path, past: pd.DataFrame, gold: pd.DataFrame, new: pd.Da
     assert main(["code", files["new"], "--dictionary", out["dictionary"], "--model", out["model"],
                  "--out", out["coded"], "--quiet"]) == 0
     coded_gold = str(tmp_path / "coded_gold.csv")
-    assert main(["code", files["gold"], "--dictionary", out["dictionary"], "--model", out["model"],
+    assert main(["code", files["gold_titles"], "--dictionary", out["dictionary"], "--model", out["model"],
                  "--out", coded_gold, "--quiet"]) == 0
     assert main(["evaluate", coded_gold, "--gold", files["gold"], "--classification", out["dictionary"],
                  "--out", out["evaluation"], "--bootstrap", "50", "--quiet"]) == 0
