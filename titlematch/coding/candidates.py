@@ -3,8 +3,9 @@
 Sources, each cheap and each catching what the others miss:
 exact key; key after spelling correction; the primary role of a multi-role title;
 IDF-weighted word overlap (word TF-IDF cosine); character n-gram TF-IDF neighbours
-(misspellings, word order, run-together words); and a linear text classifier over
-word 1-2-grams and character 4-grams for titles never seen. Candidates from all
+(misspellings, word order, run-together words); and a discriminative linear model
+(``linear.LinearTitleModel``: softmax regression over words, head word, character
+n-grams and context words) for titles never seen. Candidates from all
 sources are aggregated per code, since many dictionary entries share one.
 """
 from __future__ import annotations
@@ -12,31 +13,20 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
-from sklearn.feature_extraction.text import HashingVectorizer, TfidfTransformer, TfidfVectorizer
-from sklearn.preprocessing import normalize as l2_normalize
+from sklearn.feature_extraction.text import TfidfVectorizer
 
+from ..io.artefact import ArtefactError
 from .dictionary import TitleDictionary
+from .linear import LinearTitleModel
 from ..normalize.spelling import SpellingCorrector
 
 CHUNK = 2048
-CLASSIFIER_FEATURES = 2 ** 20
-CLASSIFIER_TEMPERATURE = 20.0  # turns centroid cosines into a sharp softmax over codes
-
-
 def _char_vectorizer(**kw) -> TfidfVectorizer:
     return TfidfVectorizer(analyzer="char_wb", ngram_range=(3, 3), sublinear_tf=True, dtype=np.float32, **kw)
 
 
 def _word_vectorizer(**kw) -> TfidfVectorizer:
     return TfidfVectorizer(analyzer="word", token_pattern=r"\S+", dtype=np.float32, **kw)
-
-
-def _classifier_vectorizers():
-    words = HashingVectorizer(analyzer="word", token_pattern=r"\S+", ngram_range=(1, 2), alternate_sign=False,
-                              n_features=CLASSIFIER_FEATURES, norm=None, dtype=np.float32)
-    chars = HashingVectorizer(analyzer="char_wb", ngram_range=(4, 4), alternate_sign=False,
-                              n_features=CLASSIFIER_FEATURES, norm=None, dtype=np.float32)
-    return words, chars
 
 
 def _restore_tfidf(make, vocabulary: pd.DataFrame, idf: np.ndarray) -> TfidfVectorizer:
@@ -141,43 +131,19 @@ class TitleIndex:
         self.char_matrix_ = self.char_vectorizer_.transform(self.keys_).T.tocsr()
         self.word_matrix_ = self.word_vectorizer_.transform(self.keys_).T.tocsr()
 
-    def _classifier_matrix(self, keys, contexts=None) -> sp.csr_matrix:
-        """Title words and character 4-grams, plus the context's words marked as context."""
-        words, chars = self._hashers
-        keys = list(keys)
-        texts = keys if contexts is None else [f"{k} {_context_words(c)}" for k, c in zip(keys, contexts)]
-        raw = words.transform(texts) + chars.transform(keys)
-        return l2_normalize(raw.multiply(self.classifier_idf_).tocsr())
-
-    @property
-    def _hashers(self):
-        if not hasattr(self, "_hashers_cache"):
-            self._hashers_cache = _classifier_vectorizers()
-        return self._hashers_cache
-
     def _fit_classifier(self, dictionary: TitleDictionary) -> None:
-        # The published method (TF-IDF word 1-2-grams + character 4-grams into a linear model), as a
-        # nearest-centroid (Rocchio) model: one sparse product over the distinct (title, context, code)
-        # units weighted by their records, so a million-record build takes seconds and the weights
-        # stay sparse. The context's words are features too: "driver" at a bus company is not
-        # "driver" at a trucking firm, even for a title never seen.
+        # The discriminative model for titles the dictionary does not hold (see ``linear``), trained
+        # on the distinct (title, context, code) units plus the official titles. The context's words
+        # are features too: "driver" at a bus company is not "driver" at a trucking firm.
         units = dictionary.units.groupby(["key", "context", "code"], sort=True)["count"].sum().reset_index()
         official = dictionary.official.assign(context="", count=1)
         train = pd.concat([units, official[["key", "context", "code", "count"]]], ignore_index=True)
         train = train[train["code"].isin(set(self.codes_))]
-        words, chars = self._hashers
-        texts = [f"{k} {_context_words(c)}" for k, c in zip(train["key"], train["context"])]
-        raw = words.transform(texts) + chars.transform(train["key"])
-        self.classifier_idf_ = TfidfTransformer(sublinear_tf=True).fit(raw).idf_.astype(np.float32)
-        X = self._classifier_matrix(train["key"], train["context"])
         y = pd.Index(self.codes_).get_indexer(train["code"])
-        weight = np.log1p(train["count"].to_numpy()).astype(np.float32)  # damp the largest titles
-        membership = sp.csr_matrix((weight, (y, np.arange(len(y)))), shape=(len(self.codes_), len(y)))
-        centroids = l2_normalize((membership @ X).tocsr())
-        centroids.data[np.abs(centroids.data) < 1e-4] = 0.0  # negligible weights only bloat the file
-        centroids.eliminate_zeros()
-        self.classifier_coef_ = centroids.astype(np.float32)
-        self.classifier_intercept_ = np.zeros(len(self.codes_))
+        weight = 1.0 + np.log(train["count"].to_numpy(np.float64))  # damp the largest titles
+        contexts = [_context_words(c) for c in train["context"]]
+        self.linear_ = LinearTitleModel(random_state=self.random_state).fit(train["key"], contexts, y,
+                                                                            len(self.codes_), weight)
         self.classifier_classes_ = np.arange(len(self.codes_), dtype=np.int64)
 
     # ---------------------------------------------------------------- persistence
@@ -189,22 +155,23 @@ class TitleIndex:
                 "index_word_vocabulary": vocab(self.word_vectorizer_), **self.corrector_.tables("spelling_")}
 
     def arrays(self) -> dict[str, np.ndarray]:
-        coef = self.classifier_coef_.tocsr()
         return {"index_char_idf": self.char_vectorizer_.idf_, "index_word_idf": self.word_vectorizer_.idf_,
-                "classifier_idf": self.classifier_idf_, "classifier_coef_data": coef.data,
-                "classifier_coef_indices": coef.indices, "classifier_coef_indptr": coef.indptr,
-                "classifier_coef_shape": np.array(coef.shape, dtype=np.int64),
-                "classifier_intercept": self.classifier_intercept_, "classifier_classes": self.classifier_classes_,
-                **self.corrector_.arrays("spelling_")}
+                "classifier_classes": self.classifier_classes_, **self.corrector_.arrays("spelling_")} | \
+            self.linear_.arrays("linear_")
 
     def params(self) -> dict:
         return {"n_neighbours": self.n_neighbours, "classifier_top": self.classifier_top,
-                "random_state": self.random_state}
+                "random_state": self.random_state, "linear": self.linear_.params()}
 
     @classmethod
     def _restore(cls, dictionary: TitleDictionary, tables: dict, arrays: dict, params: dict,
                  spelling: dict | None = None) -> "TitleIndex":
         """The index as saved by ``tables()``/``arrays()``; ``spelling`` is the corrector's parameters."""
+        params = dict(params)
+        linear = params.pop("linear", None)
+        if linear is None or "linear_coef_shape" not in arrays:
+            raise ArtefactError("the dictionary was saved by an older titlematch without its linear model; "
+                                "rebuild it with titlematch dictionary")
         self = cls(**params)
         entries = dictionary.entries
         self.keys_ = np.array(sorted(entries["key"].unique()), dtype=object)
@@ -213,11 +180,7 @@ class TitleIndex:
         self.char_vectorizer_ = _restore_tfidf(_char_vectorizer, tables["index_char_vocabulary"], arrays["index_char_idf"])
         self.word_vectorizer_ = _restore_tfidf(_word_vectorizer, tables["index_word_vocabulary"], arrays["index_word_idf"])
         self._fit_key_matrices()
-        self.classifier_idf_ = arrays["classifier_idf"]
-        shape = tuple(int(s) for s in arrays["classifier_coef_shape"])
-        self.classifier_coef_ = sp.csr_matrix((arrays["classifier_coef_data"], arrays["classifier_coef_indices"],
-                                               arrays["classifier_coef_indptr"]), shape=shape)
-        self.classifier_intercept_ = arrays["classifier_intercept"]
+        self.linear_ = LinearTitleModel.restore(arrays, linear, "linear_")
         self.classifier_classes_ = arrays["classifier_classes"]
         if spelling is not None and "spelling_hashes" in arrays:  # saved with the dictionary: not rebuilt
             self.corrector_ = SpellingCorrector.restore(tables, arrays, spelling, prefix="spelling_")
@@ -244,7 +207,6 @@ class TitleIndex:
         read from the same pass over the queries (a second pass would redo the costly product).
         """
         out = []
-        coef_t = self.classifier_coef_.T.tocsr()
         if pairs is not None:
             pair_query, pair_code = (np.asarray(p) for p in pairs)
             class_pos = np.full(len(self.codes_), -1)
@@ -255,7 +217,7 @@ class TitleIndex:
             bounds = np.searchsorted(pair_query[order], np.arange(0, len(queries) + CHUNK, CHUNK))
         for n, start in enumerate(range(0, len(queries), CHUNK)):
             part = None if contexts is None else contexts[start:start + CHUNK]
-            prob = self.classifier_proba(queries[start:start + CHUNK], part, coef_t)
+            prob = self.classifier_proba(queries[start:start + CHUNK], part)
             k = min(self.classifier_top, prob.shape[1])
             top = np.argpartition(-prob, k - 1, axis=1)[:, :k]
             rows = np.repeat(np.arange(len(top)), k)
@@ -269,18 +231,10 @@ class TitleIndex:
                      else pd.DataFrame({"query": [], "code": [], "prob": []}))
         return top_codes if pairs is None else (top_codes, pair_prob)
 
-    def classifier_proba(self, queries, contexts=None, coef_t=None) -> np.ndarray:
-        """Softmax over all codes (columns in ``classifier_classes_`` order) for each query."""
-        coef_t = self.classifier_coef_.T.tocsr() if coef_t is None else coef_t
-        X = self._classifier_matrix(queries, contexts)
-        return self._softmax(np.asarray((X @ coef_t).todense()) + self.classifier_intercept_)
-
-    @staticmethod
-    def _softmax(cosine: np.ndarray) -> np.ndarray:
-        logits = CLASSIFIER_TEMPERATURE * cosine
-        logits -= logits.max(axis=1, keepdims=True)
-        prob = np.exp(logits)
-        return prob / prob.sum(axis=1, keepdims=True)
+    def classifier_proba(self, queries, contexts=None) -> np.ndarray:
+        """The linear model's probabilities over all codes (columns in ``classifier_classes_`` order)."""
+        words = [""] * len(queries) if contexts is None else [_context_words(c) for c in contexts]
+        return self.linear_.predict_proba(list(queries), words)
 
     def exact(self, queries) -> pd.DataFrame:
         """Queries whose text is a dictionary key: query, key."""

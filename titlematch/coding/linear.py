@@ -1,0 +1,193 @@
+"""A discriminative linear model of codes for titles never seen: softmax regression on sparse features.
+
+The dictionary answers for titles it holds; for the others a linear model over the title's words
+is what generalizes (multinomial logistic regression, the published baseline for text coding).
+Features, hashed and then pruned to the ones seen in at least two training units (at most
+``max_features`` of them, the most frequent):
+
+- word 1- and 2-grams of the normalized title (``w:``);
+- the head word: the word before the first ``of``/``for``/``in``..., else the last word (``h:``),
+  since the head noun carries the occupation ("commercial plumber" is a plumber);
+- character 2-4-grams inside word boundaries, for inflections and spellings (``char_wb``);
+- the context's words, marked as context (``c:``).
+
+Trained on the distinct (title, context, code) units of the dictionary plus the official titles,
+each weighted ``1 + log(records)`` so frequent titles do not drown the rare ones the model is for,
+by minibatch stochastic gradient descent (fixed seed, fixed order: the same model on every run).
+Weights are kept dense while training (features x codes, float32) and saved sparse (small weights
+dropped), as plain arrays: nothing in the artefact executes.
+"""
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+from sklearn.feature_extraction.text import HashingVectorizer
+from sklearn.preprocessing import normalize as l2_normalize
+
+HASH_FEATURES = 2 ** 20
+DENSE_LIMIT = 64_000_000  # weights held dense for prediction up to this many (256 MB of float32)
+_PREPOSITIONS = frozenset("of for in at to with on".split())
+
+
+def head_word(key: str) -> str:
+    """The head noun of a normalized title: before the first preposition, else the last word."""
+    words = key.split()
+    for i, w in enumerate(words):
+        if w in _PREPOSITIONS and i > 0:
+            return words[i - 1]
+    return words[-1] if words else ""
+
+
+def _word_text(key: str, context_words: str) -> str:
+    head = head_word(key)
+    return f"{key} h:{head} {context_words}" if head else f"{key} {context_words}"
+
+
+class LinearTitleModel:
+    """Softmax regression over hashed-and-pruned title features.
+
+    Parameters
+    ----------
+    max_features : int
+        Features kept (the most frequent among those in at least ``min_df`` training units).
+    min_df : int
+        Training units a feature must appear in.
+    epochs, batch_size, learning_rate, alpha : SGD settings; ``alpha`` is the L2 penalty.
+    prune : float
+        Weights below this magnitude are dropped when the model is stored.
+    """
+
+    def __init__(self, max_features: int = 2 ** 16, min_df: int = 2, epochs: int = 5, batch_size: int = 256,
+                 learning_rate: float = 0.5, alpha: float = 1e-6, prune: float = 1e-3, random_state: int = 0):
+        self.max_features = max_features
+        self.min_df = min_df
+        self.epochs = epochs
+        self.batch_size = batch_size
+        self.learning_rate = learning_rate
+        self.alpha = alpha
+        self.prune = prune
+        self.random_state = random_state
+
+    # ---------------------------------------------------------------- features
+    @staticmethod
+    def _hashers():
+        words = HashingVectorizer(analyzer="word", token_pattern=r"\S+", ngram_range=(1, 2), alternate_sign=False,
+                                  n_features=HASH_FEATURES, norm=None, dtype=np.float32)
+        chars = HashingVectorizer(analyzer="char_wb", ngram_range=(2, 4), alternate_sign=False,
+                                  n_features=HASH_FEATURES, norm=None, dtype=np.float32)
+        return words, chars
+
+    def _hashed(self, keys, context_words) -> sp.csr_matrix:
+        words, chars = self._hashers()
+        keys = list(keys)
+        texts = [_word_text(k, c) for k, c in zip(keys, context_words)]
+        X = (words.transform(texts) + chars.transform(keys)).tocsr()
+        X.data = np.log1p(X.data)  # sublinear tf
+        return X
+
+    def transform(self, keys, context_words) -> sp.csr_matrix:
+        """Rows of kept features, TF-IDF weighted and L2-normalized."""
+        X = self._hashed(keys, context_words)
+        col = self.column_of_[X.indices]
+        keep = col >= 0
+        rows = np.repeat(np.arange(X.shape[0]), np.diff(X.indptr))
+        out = sp.csr_matrix((X.data[keep] * self.idf_[col[keep]], (rows[keep], col[keep])),
+                            shape=(X.shape[0], len(self.idf_)))
+        out.sort_indices()
+        return l2_normalize(out)
+
+    # ---------------------------------------------------------------- fitting
+    def fit(self, keys, context_words, y, n_classes: int, sample_weight=None) -> "LinearTitleModel":
+        """Fit on titles ``keys`` (normalized), context words and class positions ``y``."""
+        y = np.asarray(y, dtype=np.int64)
+        w = np.ones(len(y), dtype=np.float32) if sample_weight is None else np.asarray(sample_weight, np.float32)
+        X = self._hashed(keys, context_words)
+        df = np.bincount(X.indices, minlength=HASH_FEATURES)
+        candidates = np.flatnonzero(df >= self.min_df)
+        if len(candidates) > self.max_features:
+            candidates = candidates[np.argsort(-df[candidates], kind="stable")[:self.max_features]]
+            candidates.sort()
+        self.column_of_ = np.full(HASH_FEATURES, -1, dtype=np.int32)
+        self.column_of_[candidates] = np.arange(len(candidates), dtype=np.int32)
+        self.features_ = candidates.astype(np.int64)
+        n_units = len(y)
+        self.idf_ = (np.log((1 + n_units) / (1 + df[candidates])) + 1).astype(np.float32)
+        X = self.transform(keys, context_words)
+        self._sgd(X, y, w, n_classes)
+        return self
+
+    def _sgd(self, X: sp.csr_matrix, y: np.ndarray, w: np.ndarray, n_classes: int) -> None:
+        # Adagrad: a step per weight that shrinks with its own gradient history, so rare features
+        # (most of a title's words) still move fast while frequent ones settle
+        rng = np.random.default_rng(self.random_state)
+        W = np.zeros((X.shape[1], n_classes), dtype=np.float32)
+        acc = np.full((X.shape[1], n_classes), 1e-6, dtype=np.float32)
+        b = np.zeros(n_classes, dtype=np.float32)
+        acc_b = np.full(n_classes, 1e-6, dtype=np.float32)
+        w = w / w.mean()
+        for _ in range(self.epochs):
+            order = rng.permutation(len(y))
+            for start in range(0, len(y), self.batch_size):
+                rows = order[start:start + self.batch_size]
+                Xb = X[rows]
+                cols = np.unique(Xb.indices)
+                Xs = sp.csr_matrix((Xb.data, np.searchsorted(cols, Xb.indices), Xb.indptr), shape=(len(rows), len(cols)))
+                Wc = W[cols]
+                scores = Xs @ Wc + b
+                scores -= scores.max(axis=1, keepdims=True)
+                P = np.exp(scores)
+                P /= P.sum(axis=1, keepdims=True)
+                P[np.arange(len(rows)), y[rows]] -= 1.0
+                P *= w[rows, None]
+                grad = np.asarray(Xs.T @ P) + self.alpha * Wc
+                ac = acc[cols] + grad * grad
+                acc[cols] = ac
+                W[cols] = Wc - self.learning_rate * grad / np.sqrt(ac)
+                gb = P.sum(axis=0)
+                acc_b += gb * gb
+                b -= self.learning_rate * gb / np.sqrt(acc_b)
+        W[np.abs(W) < self.prune] = 0.0
+        self.coef_ = sp.csr_matrix(W)
+        self.intercept_ = b
+
+    # ---------------------------------------------------------------- predicting
+    def decision_function(self, keys, context_words) -> np.ndarray:
+        X = self.transform(keys, context_words)
+        if not hasattr(self, "_dense"):  # sparse rows times dense weights is the quick product
+            size = self.coef_.shape[0] * self.coef_.shape[1]
+            self._dense = self.coef_.toarray() if size <= DENSE_LIMIT else None
+        if self._dense is not None:
+            return X @ self._dense + self.intercept_
+        return np.asarray((X @ self.coef_).todense()) + self.intercept_
+
+    def predict_proba(self, keys, context_words) -> np.ndarray:
+        scores = self.decision_function(keys, context_words)
+        scores -= scores.max(axis=1, keepdims=True)
+        P = np.exp(scores)
+        return P / P.sum(axis=1, keepdims=True)
+
+    # ---------------------------------------------------------------- persistence
+    def arrays(self, prefix: str = "linear_") -> dict[str, np.ndarray]:
+        coef = self.coef_.tocsr()
+        return {f"{prefix}features": self.features_, f"{prefix}idf": self.idf_,
+                f"{prefix}coef_data": coef.data, f"{prefix}coef_indices": coef.indices,
+                f"{prefix}coef_indptr": coef.indptr, f"{prefix}coef_shape": np.array(coef.shape, dtype=np.int64),
+                f"{prefix}intercept": self.intercept_}
+
+    def params(self) -> dict:
+        return {"max_features": self.max_features, "min_df": self.min_df, "epochs": self.epochs,
+                "batch_size": self.batch_size, "learning_rate": self.learning_rate, "alpha": self.alpha,
+                "prune": self.prune, "random_state": self.random_state}
+
+    @classmethod
+    def restore(cls, arrays: dict, params: dict, prefix: str = "linear_") -> "LinearTitleModel":
+        self = cls(**params)
+        self.features_ = arrays[f"{prefix}features"].astype(np.int64)
+        self.column_of_ = np.full(HASH_FEATURES, -1, dtype=np.int32)
+        self.column_of_[self.features_] = np.arange(len(self.features_), dtype=np.int32)
+        self.idf_ = arrays[f"{prefix}idf"].astype(np.float32)
+        shape = tuple(int(s) for s in arrays[f"{prefix}coef_shape"])
+        self.coef_ = sp.csr_matrix((arrays[f"{prefix}coef_data"], arrays[f"{prefix}coef_indices"],
+                                    arrays[f"{prefix}coef_indptr"]), shape=shape)
+        self.intercept_ = arrays[f"{prefix}intercept"].astype(np.float32)
+        return self
