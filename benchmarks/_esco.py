@@ -13,10 +13,12 @@ from __future__ import annotations
 import hashlib
 import os
 import time
+import warnings
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from sklearn.exceptions import ConvergenceWarning
 from sklearn.feature_extraction.text import TfidfVectorizer
 from sklearn.linear_model import LogisticRegression
 from sklearn.pipeline import make_pipeline, make_union
@@ -85,13 +87,15 @@ def peer_model():
     """The protocol's peer: TF-IDF word 1-2-grams + char_wb 2-4-grams (sublinear tf) + LogisticRegression(C=10)."""
     features = make_union(TfidfVectorizer(analyzer="word", ngram_range=(1, 2), sublinear_tf=True),
                           TfidfVectorizer(analyzer="char_wb", ngram_range=(2, 4), sublinear_tf=True))
-    return make_pipeline(features, LogisticRegression(C=10.0, max_iter=1000))
+    return make_pipeline(features, LogisticRegression(C=10.0))  # scikit-learn's defaults otherwise (lbfgs, 100 iterations)
 
 
 def run_peer(data: dict[str, pd.DataFrame]) -> dict:
     """Fit the peer on past records, predict gold and new: codes, top-3 and max probabilities, time."""
     start = time.perf_counter()
-    model = peer_model().fit(data["past"]["title"], data["past"]["code"])
+    with warnings.catch_warnings():  # lbfgs may stop at its default 100 iterations: the peer as specified
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        model = peer_model().fit(data["past"]["title"], data["past"]["code"])
     out = {}
     for name in ("gold", "new"):
         proba = model.predict_proba(data[name]["title"])
@@ -99,6 +103,7 @@ def run_peer(data: dict[str, pd.DataFrame]) -> dict:
         out[name] = pd.DataFrame({"code": model.classes_[top3[:, 0]], "code_2": model.classes_[top3[:, 1]],
                                   "code_3": model.classes_[top3[:, 2]], "confidence": proba.max(axis=1)})
     out["seconds"] = time.perf_counter() - start
+    out["model"] = model
     return out
 
 

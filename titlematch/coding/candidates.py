@@ -116,9 +116,16 @@ class TitleIndex:
         self.char_vectorizer_ = _char_vectorizer(min_df=1).fit(self.keys_)
         self.word_vectorizer_ = _word_vectorizer().fit(self.keys_)
         self._fit_key_matrices()
+        self._fit_groups(dictionary)
         self._fit_classifier(dictionary)
         self.corrector_ = _corrector(dictionary)
         return self
+
+    def _fit_groups(self, dictionary: TitleDictionary) -> None:
+        """Each code's parent group in the classification, as positions (``groups_`` holds the codes)."""
+        parents = dictionary.hierarchy.parent_of(self.codes_)
+        self.groups_ = np.array(sorted(set(parents)), dtype=object)
+        self.code_group_ = pd.Index(self.groups_).get_indexer(parents).astype(np.int64)
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
         key_pos = pd.Index(self.keys_).get_indexer(entries["key"])
@@ -180,6 +187,7 @@ class TitleIndex:
         self.char_vectorizer_ = _restore_tfidf(_char_vectorizer, tables["index_char_vocabulary"], arrays["index_char_idf"])
         self.word_vectorizer_ = _restore_tfidf(_word_vectorizer, tables["index_word_vocabulary"], arrays["index_word_idf"])
         self._fit_key_matrices()
+        self._fit_groups(dictionary)
         self.linear_ = LinearTitleModel.restore(arrays, linear, "linear_")
         self.classifier_classes_ = arrays["classifier_classes"]
         if spelling is not None and "spelling_hashes" in arrays:  # saved with the dictionary: not rebuilt
@@ -201,35 +209,38 @@ class TitleIndex:
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
 
     def classify(self, queries, contexts=None, pairs: tuple[np.ndarray, np.ndarray] | None = None):
-        """The text classifier's top codes per query: query, code (position), prob (softmax over codes).
+        """The text classifier's top codes per query: query, code (position), prob (softmax over codes)
+        and group_prob (its probabilities summed over the code's parent group).
 
-        With ``pairs`` (query positions, code positions), also return the probability of each pair,
-        read from the same pass over the queries (a second pass would redo the costly product).
+        With ``pairs`` (query positions, code positions), also return the probability and the group
+        probability of each pair, read from the same pass over the queries (a second pass would redo
+        the costly product).
         """
         out = []
+        n_groups = len(self.groups_)
         if pairs is not None:
             pair_query, pair_code = (np.asarray(p) for p in pairs)
-            class_pos = np.full(len(self.codes_), -1)
-            class_pos[self.classifier_classes_] = np.arange(len(self.classifier_classes_))
-            pair_col = class_pos[pair_code]
-            pair_prob = np.zeros(len(pair_query))
+            pair_prob, pair_group = np.zeros(len(pair_query)), np.zeros(len(pair_query))
             order = np.argsort(pair_query, kind="stable")
             bounds = np.searchsorted(pair_query[order], np.arange(0, len(queries) + CHUNK, CHUNK))
         for n, start in enumerate(range(0, len(queries), CHUNK)):
             part = None if contexts is None else contexts[start:start + CHUNK]
             prob = self.classifier_proba(queries[start:start + CHUNK], part)
+            grouped = np.zeros((len(prob), n_groups))
+            np.add.at(grouped.T, self.code_group_, prob.T)
             k = min(self.classifier_top, prob.shape[1])
             top = np.argpartition(-prob, k - 1, axis=1)[:, :k]
             rows = np.repeat(np.arange(len(top)), k)
             out.append(pd.DataFrame({"query": rows + start, "code": self.classifier_classes_[top.ravel()],
-                                     "prob": prob[rows, top.ravel()]}))
+                                     "prob": prob[rows, top.ravel()],
+                                     "group_prob": grouped[rows, self.code_group_[top.ravel()]]}))
             if pairs is not None:
                 here = order[bounds[n]:bounds[n + 1]]
-                known = here[pair_col[here] >= 0]
-                pair_prob[known] = prob[pair_query[known] - start, pair_col[known]]
+                pair_prob[here] = prob[pair_query[here] - start, pair_code[here]]
+                pair_group[here] = grouped[pair_query[here] - start, self.code_group_[pair_code[here]]]
         top_codes = (pd.concat(out, ignore_index=True) if out
-                     else pd.DataFrame({"query": [], "code": [], "prob": []}))
-        return top_codes if pairs is None else (top_codes, pair_prob)
+                     else pd.DataFrame({"query": [], "code": [], "prob": [], "group_prob": []}))
+        return top_codes if pairs is None else (top_codes, pair_prob, pair_group)
 
     def classifier_proba(self, queries, contexts=None) -> np.ndarray:
         """The linear model's probabilities over all codes (columns in ``classifier_classes_`` order)."""

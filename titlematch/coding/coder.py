@@ -20,7 +20,7 @@ from ..io.artefact import load_artefact
 from ..io.columns import add_outputs
 from .candidates import TitleIndex
 from .dictionary import ARTEFACT_KIND, TitleDictionary
-from .features import FEATURES, ContextTables, candidate_features
+from .features import FEATURES, ContextTables, candidate_features, parent_groups
 from ..normalize.title import normalize_titles
 
 
@@ -209,6 +209,7 @@ class TitleCoder(BaseEstimator):
             cands = confidence.score_candidates(cands)
         out = pd.DataFrame({"title_normalized": normalized["key"].to_numpy()})
         top = _top_three(cands, len(units), self.code_titles_, with_confidence=confidence is not None)
+        top = top.join(parent_groups(cands, top["code"], self.index_, with_confidence=confidence is not None))
         for col in top.columns:
             out[col] = top[col].to_numpy()[unit_of_row]
         if confidence is not None:

@@ -18,7 +18,8 @@ from .dictionary import context_tokens
 FEATURES = [
     "exact", "exact_corrected", "via_role", "sim_char", "sim_word", "ratio", "token_set_ratio", "partial_ratio",
     "jaro_winkler", "share", "share_evidence", "log_exact_weight", "support", "log_key_weight", "log_code_weight", "code_prior", "ctx_share",
-    "ctx_global", "has_context", "ctx_known", "clf_prob", "clf_rank", "official", "n_changes",
+    "ctx_global", "has_context", "ctx_known", "clf_prob", "clf_rank", "clf_group_prob", "group_support",
+    "official", "n_changes",
     "spelling_changed", "n_roles", "n_tokens", "n_codes", "score", "score_gap", "rank",
 ]
 MAX_CANDIDATES = 10
@@ -182,11 +183,13 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     # every read also needs the classifier's probability of each code its title's matches found
     needed = (pd.DataFrame({"read": np.arange(len(distinct)), "query": distinct["query"].to_numpy()})
               .merge(best[["query", "code"]], on="query"))
-    clf, needed_prob = index.classify(qtext[distinct["query"].to_numpy()], distinct["context"].to_numpy(),
-                                      pairs=(needed["read"].to_numpy(), needed["code"].to_numpy()))
-    pair_prob = pd.Series(needed_prob, index=pd.MultiIndex.from_arrays([needed["read"], needed["code"]]))
+    clf, needed_prob, needed_group = index.classify(qtext[distinct["query"].to_numpy()], distinct["context"].to_numpy(),
+                                                    pairs=(needed["read"].to_numpy(), needed["code"].to_numpy()))
+    needed_at = pd.MultiIndex.from_arrays([needed["read"], needed["code"]])
+    pair_prob = pd.Series(needed_prob, index=needed_at)
+    pair_group = pd.Series(needed_group, index=needed_at)
     clf["clf_rank"] = clf.groupby("query")["prob"].rank(ascending=False, method="first")
-    clf = _repeat_for_units(clf.rename(columns={"query": "read", "prob": "clf_prob"})
+    clf = _repeat_for_units(clf.rename(columns={"query": "read", "prob": "clf_prob", "group_prob": "clf_group_prob"})
                             .sort_values(["read", "code"]).reset_index(drop=True), read_of_unit, by="read")
     clf["query"] = q_of_unit[clf["unit"].to_numpy()]
     # codes found by the classifier alone join the others; the rest take its probability and rank
@@ -195,10 +198,11 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     from_clf = clf.set_index(offered)
     read_found = pd.MultiIndex.from_arrays([read_of_unit[cands["unit"].to_numpy()], cands["code"].to_numpy()])
     cands["clf_prob"] = pair_prob.reindex(read_found).fillna(0.0).to_numpy()
+    cands["clf_group_prob"] = pair_group.reindex(read_found).fillna(0.0).to_numpy()
     cands["clf_rank"] = from_clf["clf_rank"].reindex(found).fillna(99.0).to_numpy()
     fill = {"exact": 0.0, "exact_corrected": 0.0, "via_role": 0.0, "sim_char": 0.0, "sim_word": 0.0,
             "strength": 0.0, "share": 0.0, "share_evidence": 0.0, "support": 0.0, "code_weight": 0.0,
-            "key_weight": 0.0, "clf_prob": 0.0, "clf_rank": 99.0, "key": -1}
+            "key_weight": 0.0, "clf_prob": 0.0, "clf_group_prob": 0.0, "clf_rank": 99.0, "key": -1}
     extra = clf[~offered.isin(found)].assign(**{k: v for k, v in fill.items() if k not in clf.columns})
     cands = pd.concat([cands, extra[cands.columns].astype(cands.dtypes.to_dict())], ignore_index=True)
     cands["key"] = cands["key"].astype(np.int64)
@@ -225,6 +229,11 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands["score"] = np.maximum(cands["strength"] ** 2 * share_eff * room, 0.5 * cands["clf_prob"])
     cands[["ctx_share", "ctx_global"]] = cands[["ctx_share", "ctx_global"]].fillna(-1.0)
 
+    # the dictionary's evidence for the code's parent group: the classification's hierarchy at work,
+    # since a group is often clear when the detailed code is not
+    group = index.code_group_[cands["code"].to_numpy()]
+    cands["group_support"] = pd.Series(cands["support"].to_numpy()).groupby(
+        [cands["unit"].to_numpy(), group]).transform("sum").to_numpy()
     cands = cands.sort_values(["unit", "score", "support", "code"], ascending=[True, False, False, True])
     cands["rank"] = cands.groupby("unit").cumcount() + 1
     cands = cands[cands["rank"] <= max_candidates].reset_index(drop=True)
@@ -288,3 +297,21 @@ def _with_global_context(cands: pd.DataFrame) -> np.ndarray:
     after = pd.Series(np.where(group, weighted, 0.0)).groupby(units).transform("sum").to_numpy()
     scaled = np.divide(weighted * before, after, out=cands["share_evidence"].to_numpy().copy(), where=after > 0)
     return np.where(group & usable, np.minimum(scaled, 1.0), cands["share_evidence"].to_numpy())
+
+
+def parent_groups(cands: pd.DataFrame, top_codes: pd.Series, index: TitleIndex, with_confidence: bool) -> pd.DataFrame:
+    """The parent group of each unit's chosen code (``parent_code``) and, with confidences, the
+    probability that the group is right (``parent_confidence``): the confidences of every candidate
+    in that group summed, since at most one candidate is right. The group is often certain when
+    the detailed code is not, and a coarser tabulation or a specialised coder can use it."""
+    code_pos = pd.Index(index.codes_).get_indexer(top_codes.to_numpy())
+    parent = np.where(code_pos >= 0, index.groups_[index.code_group_[np.maximum(code_pos, 0)]], "")
+    out = pd.DataFrame({"parent_code": parent.astype(object)}, index=top_codes.index)
+    if with_confidence:
+        cand_group = index.code_group_[pd.Index(index.codes_).get_indexer(cands["code"].to_numpy())]
+        top_group = pd.Series(np.where(code_pos >= 0, index.code_group_[np.maximum(code_pos, 0)], -1),
+                              index=top_codes.index)
+        same = cand_group == top_group.reindex(cands["unit"]).to_numpy()
+        summed = pd.Series(np.where(same, cands["confidence"].to_numpy(), 0.0)).groupby(cands["unit"].to_numpy()).sum()
+        out["parent_confidence"] = summed.reindex(top_codes.index).fillna(0.0).clip(upper=1.0).round(6).to_numpy()
+    return out

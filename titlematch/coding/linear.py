@@ -2,8 +2,7 @@
 
 The dictionary answers for titles it holds; for the others a linear model over the title's words
 is what generalizes (multinomial logistic regression, the published baseline for text coding).
-Features, hashed and then pruned to the ones seen in at least two training units (at most
-``max_features`` of them, the most frequent):
+Features, hashed and then pruned to the ``max_features`` most frequent:
 
 - word 1- and 2-grams of the normalized title (``w:``);
 - the head word: the word before the first ``of``/``for``/``in``..., else the last word (``h:``),
@@ -57,8 +56,8 @@ class LinearTitleModel:
         Weights below this magnitude are dropped when the model is stored.
     """
 
-    def __init__(self, max_features: int = 2 ** 16, min_df: int = 2, epochs: int = 5, batch_size: int = 256,
-                 learning_rate: float = 0.5, alpha: float = 1e-6, prune: float = 1e-3, random_state: int = 0):
+    def __init__(self, max_features: int = 2 ** 16, min_df: int = 1, epochs: int = 10, batch_size: int = 1024,
+                 learning_rate: float = 1.0, alpha: float = 1e-6, prune: float = 1e-3, random_state: int = 0):
         self.max_features = max_features
         self.min_df = min_df
         self.epochs = epochs

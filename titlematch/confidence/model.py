@@ -272,7 +272,7 @@ class ConfidenceModel(BaseEstimator):
             self.cv_log_loss_[name] = float(log_loss(y, np.clip(expit(raw), 1e-9, 1 - 1e-9), sample_weight=w))
         self.base_name_ = min(self.cv_log_loss_, key=self.cv_log_loss_.get)
         self.base_arrays_ = _MODELS[self.base_name_]().fit(M, y, w).arrays
-        top = _top_rows(X)
+        top = _top_rows(X, oof[self.base_name_], groups)
         self.calibration_ = fit_maps(oof[self.base_name_], y, w, top, self.calibration)
         self.oof_confidence_ = apply_maps(self.calibration_, oof[self.base_name_], top)
         self.source_ = "self-supervised"
@@ -312,7 +312,7 @@ class ConfidenceModel(BaseEstimator):
         groups = np.arange(len(y)) if groups is None else np.asarray(groups)
         method = method or self.calibration
         oof = np.zeros(len(y))
-        top = _top_rows(X)
+        top = _top_rows(X, raw, groups)
         n_splits = min(max(self.n_folds, 5), len(np.unique(groups)))
         for train, test in GroupKFold(n_splits=n_splits).split(raw, y, groups):
             maps = fit_maps(raw[train], y[train], None, top[train], method)
@@ -323,7 +323,9 @@ class ConfidenceModel(BaseEstimator):
         return self
 
     def predict_proba(self, X: pd.DataFrame) -> np.ndarray:
-        p = apply_maps(self.calibration_, self._raw(X), _top_rows(X))
+        raw = self._raw(X)
+        group = X["unit"] if "unit" in X.columns else X["record"] if "record" in X.columns else None
+        p = apply_maps(self.calibration_, raw, _top_rows(X, raw, None if group is None else group.to_numpy()))
         return np.column_stack([1 - p, p])
 
     def score_candidates(self, cands: pd.DataFrame) -> pd.DataFrame:
@@ -372,9 +374,17 @@ class ConfidenceModel(BaseEstimator):
         return self
 
 
-def _top_rows(X: pd.DataFrame) -> np.ndarray:
+def _top_rows(X: pd.DataFrame, raw: np.ndarray | None = None, groups: np.ndarray | None = None) -> np.ndarray:
     """The calibration map is fitted on each record's first candidate: the confidence that decides
-    accept or refer. The base model, trained on all candidates, already ranks the others."""
+    accept or refer. First by the base model's own score when the records are known (the learned
+    ranking over every candidate source beats any one source's order), else by the coder's rank."""
+    if raw is not None and groups is not None and len(raw):
+        order = np.lexsort((-np.asarray(raw), np.asarray(groups)))
+        first = np.ones(len(order), dtype=bool)
+        first[1:] = np.asarray(groups)[order][1:] != np.asarray(groups)[order][:-1]
+        top = np.zeros(len(raw), dtype=bool)
+        top[order[first]] = True
+        return top
     if "rank" not in X.columns:
         return np.ones(len(X), dtype=bool)
     return X["rank"].to_numpy() == 1

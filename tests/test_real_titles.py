@@ -1,0 +1,48 @@
+"""Real titles: built from ESCO's past labels, titlematch codes the new labels better than the protocol's peer.
+
+ESCO v1.0 occupation labels (European Commission), dev half, split by the protocol in
+../shared/reference/README.md (benchmarks/_esco.py). To stay quick the test keeps the ISCO-08 major
+groups 2 and 7 (professionals; craft and related trades: about 140 unit groups); the peer is the
+protocol's TF-IDF word 1-2-grams + char_wb 2-4-grams into LogisticRegression(C=10), fitted in the same
+test on the same past records. Quality only: speed is in benchmarks/bench_real_titles.py.
+"""
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from titlematch.coding.classification import Classification
+from titlematch.coding.coder import TitleCoder
+from titlematch.confidence.calibration import calibrate
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
+import _esco  # noqa: E402
+
+
+def _subset(data: dict, pattern: str = r"^[27]") -> dict:
+    return {k: v[v["code"].str.match(pattern)].reset_index(drop=True) for k, v in data.items()}
+
+
+def test_new_real_titles_are_coded_better_than_by_the_peer():
+    data = _subset(_esco.split(_esco.load_labels()))
+    isco = Classification.builtin("isco08")
+    leaves = isco.leaves()
+    coder = TitleCoder().fit(data["past"][["title", "year"]], data["past"]["code"],
+                             classification=leaves[leaves["code"].str.match(r"^[27]")])
+    model = calibrate(coder, data["gold"], min_accuracy=0.9, n_boot=50).model
+    coded = coder.code(data["new"][["title"]], confidence=model)
+    truth = data["new"]["code"].to_numpy()
+    ours = float(np.mean(coded["code"].to_numpy() == truth))
+    peer = _esco.run_peer(data)
+    theirs = float(np.mean(peer["new"]["code"].to_numpy() == truth))
+    # the floor: the full dev half codes about 80% right (benchmarks/RESULTS.md); this subset is as hard
+    assert ours >= 0.75, ours
+    assert ours > theirs, (ours, theirs)
+    # codes come out as the classification writes them, and their parent groups with them
+    assert set(coded["code"]) <= set(leaves["code"])
+    assert (coded["parent_code"] == isco.parent_of(coded["code"])).all()
+    right = coded["code"].to_numpy() == truth
+    accepted = coded["decision"].to_numpy() == "accept"
+    assert right[accepted].mean() >= 0.85  # asked for 0.9 on the gold sample; new records hold it within sampling
