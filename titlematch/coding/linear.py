@@ -10,7 +10,9 @@ Features, hashed and then pruned to the ``max_features`` most frequent:
 - character 2-4-grams inside word boundaries, for inflections and spellings (``char_wb``);
 - the context's words, marked as context (``c:``).
 
-Trained on the distinct (title, context, code) units of the dictionary plus the official titles,
+Its probabilities are blended half and half with a nearest-centroid (Rocchio) model on the same
+features: the softmax wins with many titles per code, the centroids with a handful (measured on real
+titles, benchmarks/RESULTS.md). Trained on the distinct (title, context, code) units of the dictionary plus the official titles,
 each weighted ``1 + log(records)`` so frequent titles do not drown the rare ones the model is for,
 by minibatch stochastic gradient descent (fixed seed, fixed order: the same model on every run).
 Weights are kept dense while training (features x codes, float32) and saved sparse (small weights
@@ -24,6 +26,7 @@ from sklearn.feature_extraction.text import HashingVectorizer
 from sklearn.preprocessing import normalize as l2_normalize
 
 HASH_FEATURES = 2 ** 20
+CENTROID_TEMPERATURE = 20.0  # turns centroid cosines into a sharp softmax over codes
 DENSE_LIMIT = 64_000_000  # weights held dense for prediction up to this many (256 MB of float32)
 _PREPOSITIONS = frozenset("of for in at to with on".split())
 
@@ -57,7 +60,9 @@ class LinearTitleModel:
     """
 
     def __init__(self, max_features: int = 2 ** 16, min_df: int = 1, epochs: int = 10, batch_size: int = 1024,
-                 learning_rate: float = 1.0, alpha: float = 1e-6, prune: float = 1e-3, random_state: int = 0):
+                 learning_rate: float = 1.0, alpha: float = 1e-6, prune: float = 1e-3, blend: float = 0.5,
+                 random_state: int = 0):
+        self.blend = blend
         self.max_features = max_features
         self.min_df = min_df
         self.epochs = epochs
@@ -113,6 +118,13 @@ class LinearTitleModel:
         self.idf_ = (np.log((1 + n_units) / (1 + df[candidates])) + 1).astype(np.float32)
         X = self.transform(keys, context_words)
         self._sgd(X, y, w, n_classes)
+        # the nearest-centroid (Rocchio) model on the same features, blended in: with a handful of
+        # titles per code it generalizes better than the softmax, which needs examples to find weights
+        membership = sp.csr_matrix((w, (y, np.arange(len(y)))), shape=(n_classes, len(y)))
+        centroids = l2_normalize((membership @ X).tocsr())
+        centroids.data[np.abs(centroids.data) < 1e-4] = 0.0  # negligible weights only bloat the file
+        centroids.eliminate_zeros()
+        self.centroids_ = centroids.T.tocsr().astype(np.float32)
         return self
 
     def _sgd(self, X: sp.csr_matrix, y: np.ndarray, w: np.ndarray, n_classes: int) -> None:
@@ -151,7 +163,9 @@ class LinearTitleModel:
 
     # ---------------------------------------------------------------- predicting
     def decision_function(self, keys, context_words) -> np.ndarray:
-        X = self.transform(keys, context_words)
+        return self._scores(self.transform(keys, context_words))
+
+    def _scores(self, X: sp.csr_matrix) -> np.ndarray:
         if not hasattr(self, "_dense"):  # sparse rows times dense weights is the quick product
             size = self.coef_.shape[0] * self.coef_.shape[1]
             self._dense = self.coef_.toarray() if size <= DENSE_LIMIT else None
@@ -160,10 +174,13 @@ class LinearTitleModel:
         return np.asarray((X @ self.coef_).todense()) + self.intercept_
 
     def predict_proba(self, keys, context_words) -> np.ndarray:
-        scores = self.decision_function(keys, context_words)
-        scores -= scores.max(axis=1, keepdims=True)
-        P = np.exp(scores)
-        return P / P.sum(axis=1, keepdims=True)
+        """The softmax model's probabilities blended with the centroid model's (``blend`` of the latter)."""
+        X = self.transform(keys, context_words)
+        P = _softmax(self._scores(X))
+        if self.blend > 0:
+            cosine = np.asarray((X @ self.centroids_).todense())
+            P = (1 - self.blend) * P + self.blend * _softmax(CENTROID_TEMPERATURE * cosine)
+        return P
 
     # ---------------------------------------------------------------- persistence
     def arrays(self, prefix: str = "linear_") -> dict[str, np.ndarray]:
@@ -171,12 +188,14 @@ class LinearTitleModel:
         return {f"{prefix}features": self.features_, f"{prefix}idf": self.idf_,
                 f"{prefix}coef_data": coef.data, f"{prefix}coef_indices": coef.indices,
                 f"{prefix}coef_indptr": coef.indptr, f"{prefix}coef_shape": np.array(coef.shape, dtype=np.int64),
-                f"{prefix}intercept": self.intercept_}
+                f"{prefix}intercept": self.intercept_, f"{prefix}centroid_data": self.centroids_.data,
+                f"{prefix}centroid_indices": self.centroids_.indices, f"{prefix}centroid_indptr": self.centroids_.indptr,
+                f"{prefix}centroid_shape": np.array(self.centroids_.shape, dtype=np.int64)}
 
     def params(self) -> dict:
         return {"max_features": self.max_features, "min_df": self.min_df, "epochs": self.epochs,
                 "batch_size": self.batch_size, "learning_rate": self.learning_rate, "alpha": self.alpha,
-                "prune": self.prune, "random_state": self.random_state}
+                "prune": self.prune, "blend": self.blend, "random_state": self.random_state}
 
     @classmethod
     def restore(cls, arrays: dict, params: dict, prefix: str = "linear_") -> "LinearTitleModel":
@@ -189,4 +208,13 @@ class LinearTitleModel:
         self.coef_ = sp.csr_matrix((arrays[f"{prefix}coef_data"], arrays[f"{prefix}coef_indices"],
                                     arrays[f"{prefix}coef_indptr"]), shape=shape)
         self.intercept_ = arrays[f"{prefix}intercept"].astype(np.float32)
+        shape = tuple(int(s) for s in arrays[f"{prefix}centroid_shape"])
+        self.centroids_ = sp.csr_matrix((arrays[f"{prefix}centroid_data"], arrays[f"{prefix}centroid_indices"],
+                                         arrays[f"{prefix}centroid_indptr"]), shape=shape)
         return self
+
+
+def _softmax(scores: np.ndarray) -> np.ndarray:
+    scores = scores - scores.max(axis=1, keepdims=True)
+    P = np.exp(scores)
+    return P / P.sum(axis=1, keepdims=True)
