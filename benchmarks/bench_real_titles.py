@@ -50,7 +50,7 @@ def run_titlematch(data: dict, work: Path) -> dict:
     files = {}
     for name in ("past", "gold", "new"):
         files[name] = str(work / f"{name}.csv")
-        data[name].to_csv(files[name], index=False)
+        data[name][["title"] if name == "new" else data[name].columns].to_csv(files[name], index=False)
     times = {}
     start = time.perf_counter()
     cli(["dictionary", files["past"], "--classification", "isco08", "--out", str(work / "dictionary"), "--quiet"])
