@@ -35,7 +35,7 @@ def journal_decisions(state: JournalState, known_codes: set[str], code_pattern: 
     rejects = rejects if rejects is not None else Rejects()
     for line, text in state.damaged:
         rejects.add(source, line, "", "unreadable journal line (cut short by a crash, or edited)", text)
-    pattern = re.compile(code_pattern)
+    pattern = re.compile(code_pattern or "")  # no pattern: codes are opaque, checked against the catalogue
     rows = []
     for title, entries in decisions_by_title(state).items():
         first = entries[0]

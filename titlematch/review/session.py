@@ -128,7 +128,7 @@ class ReviewSession:
         self.lease_seconds = lease_seconds
         self.examples = examples or {}
         self.catalogue = dictionary.code_titles()
-        self.code_pattern = re.compile(dictionary.code_pattern)
+        self.code_pattern = re.compile(dictionary.code_pattern or "")  # no pattern: codes are opaque strings
         self.search_index = ClassificationSearch(dictionary, group_titles=group_titles())
         self.residual_code = find_residual_code(dictionary.catalogue) if residual_code is None else residual_code
         if self.residual_code and self.residual_code not in self.catalogue:
