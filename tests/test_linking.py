@@ -267,7 +267,7 @@ def test_supervised_model_from_training_pairs(scenario):
 def test_register_index_round_trip_and_tamper_check(tmp_path, scenario):
     index = RegisterIndex().fit(scenario["register"])
     index.save(tmp_path / "index")
-    files = sorted(p.name for p in (tmp_path / "index").iterdir())
+    files = sorted(p.name for p in (tmp_path / "index").rglob("*") if p.is_file())
     assert all(f.endswith((".parquet", ".npy", ".json")) for f in files)  # data only, no pickle
     loaded = RegisterIndex.load(tmp_path / "index")
     records = scenario["new"].head(200)

@@ -30,6 +30,12 @@ def parse_fields(text: str | None, option: str = "--fields") -> dict[str, str]:
     return mapping
 
 
+def add_workers_argument(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--workers", type=int, default=-1, metavar="N",
+                        help="processes sharing the work on this machine (default -1: every core); "
+                             "the output is the same for any number")
+
+
 def add_common_field_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--id-col", default="register_id", help="register id column (default register_id)")
     parser.add_argument("--encoding", help="CSV encoding (default: detected)")
@@ -59,7 +65,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         help="a register entry takes at most one record of the file")
     parser.add_argument("--neighbours", type=int, default=10, help="nearest names per record in blocking")
     parser.add_argument("--max-block", type=int, default=100, help="skip key blocks larger than this")
-    parser.add_argument("--workers", type=int, default=-1, help="threads for string comparisons (-1 = all)")
+    add_workers_argument(parser)
     parser.add_argument("--register-fields", metavar="ROLE=COLUMN,...",
                         help="register column names when they differ from the records' (same syntax as --fields)")
     parser.add_argument("--id-col", default="register_id", help="register id column (default register_id)")
@@ -90,7 +96,7 @@ def load_register(args, fields, rejects):
         index.fields_ = [replace(f, column=columns.get(f.name, f.column)) for f in index.fields_]
         return index
     frame = read_table(path, required=[args.id_col], encoding=args.encoding, rejects=rejects)
-    return RegisterIndex(fields, args.id_col).fit(frame, source=str(path))
+    return RegisterIndex(fields, args.id_col, workers=args.workers).fit(frame, source=str(path))
 
 
 class LinkStep:

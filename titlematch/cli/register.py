@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import argparse
 
-from .link import _fields, add_common_field_options
+from .link import _fields, add_common_field_options, add_workers_argument
 
 ORDER = 39
 
@@ -17,20 +17,26 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--out", required=True, help="index directory to write")
     parser.add_argument("--fields", metavar="ROLE=COLUMN,...",
                         help="register columns of the compared fields, e.g. name=legal_name,address=street")
+    parser.add_argument("--partition-rows", type=int, default=None, metavar="N",
+                        help="register records per partition of the index (default 1000000); 'link' reads "
+                             "one partition at a time, so the register may be larger than memory")
     add_common_field_options(parser)
+    add_workers_argument(parser)
     return parser
 
 
 def run(args) -> int:
-    from ..io import Rejects, read_table, rejects_path_for
+    from ..io import InputError, Rejects, read_table, rejects_path_for
     from ..linking.register import RegisterIndex
     from ..runtime.progress import Summary
 
     summary = Summary("register", args.quiet)
     rejects = Rejects()
     frame = read_table(args.file, required=[args.id_col], encoding=args.encoding, rejects=rejects)
-    index = RegisterIndex(_fields(args), args.id_col).fit(frame, source=args.file)
-    index.save(args.out)
+    if args.partition_rows is not None and args.partition_rows < 1:
+        raise InputError(f"--partition-rows: expected a positive number, got {args.partition_rows}")
+    index = RegisterIndex(_fields(args), args.id_col, workers=args.workers).fit(frame, source=args.file)
+    index.save(args.out, partition_rows=args.partition_rows)
     summary.set(rows_in=len(frame) + len(rejects.rows()), indexed=len(index), rejected=len(rejects.rows()))
     if len(rejects):
         rejects.write(rejects_path_for(args.out.rstrip("/") + ".csv"))

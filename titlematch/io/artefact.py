@@ -7,10 +7,13 @@ crafted artefact can make loading fail but cannot run code.
 """
 from __future__ import annotations
 
+import ctypes
 import json
 import os
 import shutil
+import sys
 import tempfile
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -39,29 +42,55 @@ class Artefact:
 
 def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.DataFrame], *,
                   arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> Path:
-    """Write an artefact to ``directory`` atomically (built beside it, then renamed into place); returns
+    """Write an artefact to ``directory`` atomically (built beside it, then swapped into place); returns
     the directory (its manifest: :func:`read_manifest`)."""
+    with staged_directory(directory) as staging:
+        write_artefact(staging, kind, tables, arrays=arrays, meta=meta)
+    return Path(directory)
+
+
+def write_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.DataFrame], *,
+                   arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> dict:
+    """Write an artefact's files into an existing ``directory`` (a staging directory: no atomicity here);
+    the manifest is written last, so a directory without one was never finished."""
+    directory = Path(directory)
+    files = {}
+    for name, table in tables.items():
+        target = directory / f"{name}.parquet"
+        table.reset_index(drop=True).to_parquet(target, index=False)
+        files[target.name] = {"sha256": file_sha256(target), "rows": int(len(table))}
+    for name, array in (arrays or {}).items():
+        array = np.asarray(array)
+        if array.dtype == object:
+            raise TypeError(f"array {name!r} has dtype object; artefacts hold numeric arrays only")
+        target = directory / f"{name}.npy"
+        np.save(target, array, allow_pickle=False)
+        files[target.name] = {"sha256": file_sha256(target), "shape": list(array.shape)}
+    manifest = {"kind": kind, "format_version": FORMAT_VERSION, "library_version": __version__,
+                "files": files, "meta": meta or {}}
+    (directory / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n",
+                                      encoding="utf-8")
+    return manifest
+
+
+@contextmanager
+def staged_directory(directory: str | os.PathLike):
+    """Yield an empty staging directory beside ``directory``; on success it takes ``directory``'s place.
+
+    A process killed at any moment leaves at ``directory`` either what was there before or the
+    finished new directory: where the kernel can swap two paths in one step (Linux
+    ``renameat2(RENAME_EXCHANGE)``) it does; elsewhere the old directory is moved aside first, and
+    a kill in between leaves nothing at ``directory`` (the old one stays in ``.NAME.old.*``).
+    Staging directories of killed runs are hidden (``.NAME.*``) and never read.
+    """
     directory = Path(directory)
     directory.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{directory.name}.", dir=directory.parent))
     try:
-        files = {}
-        for name, table in tables.items():
-            target = staging / f"{name}.parquet"
-            table.reset_index(drop=True).to_parquet(target, index=False)
-            files[target.name] = {"sha256": file_sha256(target), "rows": int(len(table))}
-        for name, array in (arrays or {}).items():
-            array = np.asarray(array)
-            if array.dtype == object:
-                raise TypeError(f"array {name!r} has dtype object; artefacts hold numeric arrays only")
-            target = staging / f"{name}.npy"
-            np.save(target, array, allow_pickle=False)
-            files[target.name] = {"sha256": file_sha256(target), "shape": list(array.shape)}
-        manifest = {"kind": kind, "format_version": FORMAT_VERSION, "library_version": __version__,
-                    "files": files, "meta": meta or {}}
-        (staging / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n",
-                                        encoding="utf-8")
-        if directory.exists():
+        yield staging
+        if directory.exists() and _exchange(staging, directory):
+            shutil.rmtree(staging, ignore_errors=True)  # now holds the old directory
+        elif directory.exists():
             retired = Path(tempfile.mkdtemp(prefix=f".{directory.name}.old.", dir=directory.parent))
             os.replace(directory, retired / directory.name)
             os.replace(staging, directory)
@@ -71,7 +100,19 @@ def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.
     finally:
         if staging.exists():
             shutil.rmtree(staging, ignore_errors=True)
-    return directory
+
+
+def _exchange(a: Path, b: Path) -> bool:
+    """Atomically swap two paths (Linux renameat2 with RENAME_EXCHANGE); False where unsupported."""
+    if sys.platform != "linux":
+        return False
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        renameat2 = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    at_fdcwd, rename_exchange = -100, 2
+    return renameat2(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange) == 0
 
 
 def read_manifest(directory: str | os.PathLike) -> dict:

@@ -28,6 +28,7 @@ import pandas as pd
 import scipy.sparse as sp
 from recordlinkage.measures import reduction_ratio
 
+from .partitions import region_columns, region_keys
 from .register import Field, RegisterIndex
 
 log = logging.getLogger(__name__)
@@ -130,11 +131,16 @@ def _codes(new_keys: np.ndarray, register_keys: np.ndarray) -> tuple[np.ndarray,
 
 
 def join_codes(new_rows: np.ndarray, new_codes: np.ndarray, register_rows: np.ndarray,
-               register_codes: np.ndarray, max_block: int) -> tuple[np.ndarray, np.ndarray, int]:
-    """All (new, register) row pairs with equal non-negative codes, skipping blocks over ``max_block``.
+               register_codes: np.ndarray, max_block: int, skip: np.ndarray | None = None
+               ) -> tuple[np.ndarray, np.ndarray, int]:
+    """All (new, register) row pairs with equal non-negative codes, skipping blocks over ``max_block``
+    (counted here) or, when given, the new keys marked in ``skip`` (blocks counted over the whole
+    register, of which these rows may be a partition).
 
     Returns the pair arrays and the number of new-record keys whose block was too large.
     """
+    if skip is not None:
+        new_codes = np.where(skip, -1, new_codes)
     ok = register_codes >= 0
     register_rows, register_codes = register_rows[ok], register_codes[ok]
     ok = new_codes >= 0
@@ -146,7 +152,7 @@ def join_codes(new_rows: np.ndarray, new_codes: np.ndarray, register_rows: np.nd
     uniq, starts, counts = np.unique(register_codes[order], return_index=True, return_counts=True)
     at = np.minimum(np.searchsorted(uniq, new_codes), len(uniq) - 1)
     found = uniq[at] == new_codes
-    keep = found & (counts[at] <= max_block)
+    keep = found & (counts[at] <= max_block) if skip is None else found
     too_large = int((found & ~keep).sum())
     rows, st, ct = new_rows[keep], starts[at[keep]], counts[at[keep]]
     total = int(ct.sum())
@@ -155,52 +161,117 @@ def join_codes(new_rows: np.ndarray, new_codes: np.ndarray, register_rows: np.nd
             too_large)
 
 
-def _key_pairs(rule: KeyRule, new: pd.DataFrame, register: pd.DataFrame, max_block: int):
-    new_codes, register_codes = _codes(_keys(new, rule.columns), _keys(register, rule.columns))
-    return join_codes(np.arange(len(new)), new_codes, np.arange(len(register)), register_codes,
-                      rule.max_block or max_block)
+# --------------------------------------------------------------------------- block sizes over the whole register
+# A key's block is counted over the whole register, whichever partition its records are in, so a
+# partitioned index skips exactly the blocks an index in one piece skips. Keys are hashed to 64 bits
+# for the count (a collision, about one in 10^8 at 10 million keys, would at worst skip one block).
+
+_MIX = np.uint64(0x9E3779B97F4A7C15)
 
 
-def _token_pairs(rule: TokenRule, new: pd.DataFrame, new_words: sp.csr_matrix, index: RegisterIndex,
-                 max_block: int):
-    words = index.word_matrix_
-    n_words = words.shape[1]
-    document_frequency = np.bincount(words.indices, minlength=n_words)
-    rare = document_frequency <= max(1, rule.max_share * len(index))
+def _hash(values: np.ndarray) -> np.ndarray:
+    """64-bit hash of each string, each distinct string hashed once."""
+    codes, uniques = pd.factorize(np.asarray(values, dtype=object))
+    return pd.util.hash_array(np.asarray(uniques, dtype=object))[codes] if len(codes) else np.empty(0, np.uint64)
 
-    def explode(matrix: sp.csr_matrix, within: np.ndarray | None):
-        rows = np.repeat(np.arange(matrix.shape[0]), np.diff(matrix.indptr))
-        tokens = matrix.indices.astype(np.int64)
-        keep = rare[tokens]
-        rows, tokens = rows[keep], tokens[keep]
-        if within is None:
-            return rows, tokens
-        region = within[rows]
-        return rows, np.where(region >= 0, region * n_words + tokens, -1)
 
-    if rule.within:
-        new_region, register_region = _codes(_keys(new, [rule.within]), _keys(index.prepared_, [rule.within]))
+def _key_hashes(rule: KeyRule, prepared: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """(rows with a key, hash of their key)."""
+    keys = _keys(prepared, rule.columns)
+    rows = np.flatnonzero(keys != "")
+    return rows, _hash(keys[rows])
+
+
+def _rare_words(rule: TokenRule, index: RegisterIndex) -> np.ndarray:
+    return index.word_frequency_ <= max(1, rule.max_share * len(index))
+
+
+def _token_hashes(rule: TokenRule, prepared: pd.DataFrame, words: sp.csr_matrix, rare: np.ndarray
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(row, word) of every rare word in ``words`` with the hash of (its region, the word); rows
+    outside any region are dropped when the rule is within one."""
+    rows = np.repeat(np.arange(words.shape[0]), np.diff(words.indptr))
+    tokens = words.indices.astype(np.int64)
+    keep = rare[tokens]
+    rows, tokens = rows[keep], tokens[keep]
+    if rule.within is None:
+        region = np.zeros(len(rows), dtype=np.uint64)
     else:
-        new_region = register_region = None
-    new_rows, new_codes = explode(new_words, new_region)
-    register_rows, register_codes = explode(words, register_region)
-    return join_codes(new_rows, new_codes, register_rows, register_codes, max_block)
+        values = prepared[rule.within].fillna("").astype(str).to_numpy(dtype=object)
+        present = values[rows] != ""
+        rows, tokens = rows[present], tokens[present]
+        region = _hash(values)[rows]
+    return rows, tokens, pd.util.hash_array(region ^ (tokens.astype(np.uint64) * _MIX))
+
+
+def block_sizes(index: RegisterIndex, rule) -> tuple[np.ndarray, np.ndarray]:
+    """(sorted key hashes, register records per key) of a key or token rule over every partition;
+    kept on the index, so a chunked run counts once."""
+    cache = index.__dict__.setdefault("_block_sizes", {})
+    key = (type(rule).__name__, rule.columns if isinstance(rule, KeyRule) else (rule.within, rule.max_share))
+    if key not in cache:
+        found = []
+        for k in range(index.n_partitions):
+            part = index.partition(k)
+            if isinstance(rule, KeyRule):
+                found.append(_key_hashes(rule, part.prepared_)[1])
+            else:
+                found.append(_token_hashes(rule, part.prepared_, part.word_matrix_, _rare_words(rule, index))[2])
+        cache[key] = np.unique(np.concatenate(found) if found else np.empty(0, np.uint64), return_counts=True)
+    return cache[key]
+
+
+def _oversized(index: RegisterIndex, rule, hashes: np.ndarray, max_block: int) -> np.ndarray:
+    keys, counts = block_sizes(index, rule)
+    if not len(keys):
+        return np.zeros(len(hashes), dtype=bool)
+    at = np.minimum(np.searchsorted(keys, hashes), len(keys) - 1)
+    return (keys[at] == hashes) & (counts[at] > max_block)
+
+
+# --------------------------------------------------------------------------- rules on one partition
+
+def _key_pairs(rule: KeyRule, new: pd.DataFrame, part, too_large: np.ndarray):
+    """Pairs of a key rule between ``new`` and one partition; ``too_large`` marks new rows whose block
+    is over the limit in the whole register."""
+    new_codes, register_codes = _codes(_keys(new, rule.columns), _keys(part.prepared_, rule.columns))
+    i, j, _ = join_codes(np.arange(len(new)), new_codes, np.arange(len(part)), register_codes, 0, skip=too_large)
+    return i, j
+
+
+def _token_pairs(rule: TokenRule, new_tokens, part, rare: np.ndarray):
+    """Pairs sharing a rare word (in the same region) between the new records' (row, word, hash, too
+    large) and one partition."""
+    rows, _, hashes, too_large = new_tokens
+    register_rows, _, register_hashes = _token_hashes(rule, part.prepared_, part.word_matrix_, rare)
+    # The hash stands for (region, word): factorized together, equal hashes are equal codes.
+    codes, _ = pd.factorize(np.concatenate([register_hashes, hashes]))
+    i, j, _ = join_codes(rows, codes[len(register_hashes):].astype(np.int64), register_rows,
+                         codes[: len(register_hashes)].astype(np.int64), 0, skip=too_large)
+    return i, j
 
 
 def top_k(similarity: sp.csr_matrix, k: int, min_similarity: float) -> tuple[np.ndarray, np.ndarray]:
     """Row and column of each row's ``k`` largest entries that reach ``min_similarity``."""
+    rows, cols, _ = _top_k(similarity, k, min_similarity)
+    return rows, cols
+
+
+def _top_k(similarity: sp.csr_matrix, k: int, min_similarity: float):
     similarity = similarity.tocsr()
     rows = np.repeat(np.arange(similarity.shape[0]), np.diff(similarity.indptr))
-    cols, data = similarity.indices, similarity.data
-    keep = data >= min_similarity
-    rows, cols, data = rows[keep], cols[keep], data[keep]
-    # One float sort orders by row, then by decreasing similarity (similarities lie in [0, 1]).
-    order = np.argsort(rows.astype(np.float64) * 2.0 + (1.0 - np.clip(data, 0.0, 1.0)), kind="stable")
-    rows, cols = rows[order], cols[order]
+    keep = similarity.data >= min_similarity
+    return best_k(rows[keep], similarity.indices[keep].astype(np.int64), similarity.data[keep], k)
+
+
+def best_k(rows: np.ndarray, cols: np.ndarray, data: np.ndarray, k: int):
+    """Each row's ``k`` entries of largest ``data``, ties to the smaller column: the same choice
+    whether the columns come from one register or from several partitions of it."""
+    order = np.lexsort((cols, -data, rows))
+    rows, cols, data = rows[order], cols[order], data[order]
     first = np.searchsorted(rows, rows, side="left")
-    rank = np.arange(len(rows)) - first
-    keep = rank < k
-    return rows[keep].astype(np.int64), cols[keep].astype(np.int64)
+    keep = (np.arange(len(rows)) - first) < k
+    return rows[keep].astype(np.int64), cols[keep].astype(np.int64), data[keep]
 
 
 def blocking_matrix(matrix: sp.csr_matrix, keep_columns: np.ndarray) -> sp.csr_matrix:
@@ -225,36 +296,61 @@ def _regions(new_region: np.ndarray, register_region: np.ndarray) -> list[tuple[
     return groups
 
 
-def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_matrix, index: RegisterIndex,
-                     max_postings: int, chunk: int, self_join: bool):
-    register_chars = index.char_matrix_
-    # N-grams in very many register names cost most in a sparse product and rank little:
-    # they are left out of the neighbour search (they still count in the comparisons).
-    postings = np.bincount(register_chars.indices, minlength=register_chars.shape[1])
-    keep = postings <= max_postings
-    query = blocking_matrix(new_chars, keep)
-    target_t = blocking_matrix(register_chars, keep).T.tocsr()
-    k = rule.k + (1 if self_join else 0)
+def _searchable(part, keep: np.ndarray, max_postings: int) -> sp.csr_matrix:
+    """The partition's n-gram rows without the too-common n-grams, transposed for the product; kept
+    on the partition (the same for every batch)."""
+    cache = part.__dict__.setdefault("_searchable", {})
+    if max_postings not in cache:
+        cache[max_postings] = blocking_matrix(part.char_matrix_, keep).T.tocsr()
+    return cache[max_postings]
+
+
+def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_matrix, query: sp.csr_matrix,
+                     part, keep: np.ndarray, max_postings: int, chunk: int, k: int):
+    """Each new record's ``k`` nearest names in one partition: (new row, partition row, similarity)."""
+    register_chars = part.char_matrix_
     groups = [(np.arange(len(new)), None)]
     if rule.within:
-        new_region, register_region = _codes(_keys(new, [rule.within]), _keys(index.prepared_, [rule.within]))
+        new_region, register_region = _codes(_keys(new, [rule.within]), _keys(part.prepared_, [rule.within]))
         groups = [(np.flatnonzero(new_region < 0), None)] + _regions(new_region, register_region)
-    out_i, out_j = [], []
+    out_i, out_j, out_s = [], [], []
     for rows, members in groups:
         if not len(rows) or (members is not None and not len(members)):
             continue
         # Within a region the products are small: every n-gram counts there, however common.
         source = query if members is None else new_chars
-        block_target = target_t if members is None else register_chars[members].T.tocsr()
+        block_target = _searchable(part, keep, max_postings) if members is None else register_chars[members].T.tocsr()
         for start in range(0, len(rows), chunk):
             block = rows[start: start + chunk]
-            i, j = top_k(source[block] @ block_target, k, rule.min_similarity)
+            i, j, s = _top_k(source[block] @ block_target, k, rule.min_similarity)
             out_i.append(block[i])
             out_j.append(j if members is None else members[j])
+            out_s.append(s)
     if not out_i:
         empty = np.empty(0, dtype=np.int64)
-        return empty, empty, 0
-    return np.concatenate(out_i), np.concatenate(out_j), 0
+        return empty, empty, np.empty(0, dtype=np.float32)
+    return np.concatenate(out_i), np.concatenate(out_j), np.concatenate(out_s)
+
+
+# --------------------------------------------------------------------------- the union over partitions
+
+def needed_partitions(new: pd.DataFrame, index: RegisterIndex, rules: Sequence) -> np.ndarray:
+    """The partitions that can hold pairs for ``new``: those of the batch's regions when every rule
+    pairs records of one region only; otherwise every partition (a rule such as the nearest names
+    over the whole register can find a pair anywhere)."""
+    everything = np.arange(index.n_partitions)
+    regional = region_columns(index.fields_)
+    if index.n_partitions == 1 or not regional:
+        return everything
+    for rule in rules:
+        if isinstance(rule, KeyRule) and regional & set(rule.columns):
+            continue
+        if isinstance(rule, TokenRule) and rule.within in regional:
+            continue
+        if isinstance(rule, NeighbourRule) and rule.within in regional and (new[rule.within] != "").all():
+            continue
+        return everything
+    return index.partitions_of_regions(region_keys(new, index.fields_))
 
 
 def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
@@ -266,7 +362,8 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
     Parameters
     ----------
     new : prepared incoming records (``RegisterIndex.prepare``)
-    index : the register index
+    index : the register index, in one piece or in partitions (each read in turn; the pairs are
+        the same either way)
     rules : KeyRule / TokenRule / NeighbourRule objects
     new_chars, new_words : TF-IDF rows of ``new["text"]`` (computed when not given)
     max_block : key blocks with more register records are skipped
@@ -276,33 +373,65 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
 
     Returns
     -------
-    DataFrame with int64 columns ``new`` and ``register``, sorted; ``attrs["rules"]`` holds
-    the pairs each rule found and the keys skipped for size.
+    DataFrame with int64 columns ``new`` and ``register`` (positions in the whole register),
+    sorted; ``attrs["rules"]`` holds the pairs each rule found and the keys skipped for size.
     """
+    new = new.reset_index(drop=True)
     if new_chars is None or new_words is None:
         new_chars, new_words = index.vectorize(new["text"])
     if max_postings is None:
         max_postings = max(2000, int(0.005 * len(index)))
     n_register = len(index)
-    found, report = [], {}
+    keep = index.char_postings_ <= max_postings
+    query = blocking_matrix(new_chars, keep)
+    # What each rule needs about the new records, and which of their keys are over the limit.
+    state, skipped = {}, {}
     for rule in rules:
         if isinstance(rule, KeyRule):
-            i, j, skipped = _key_pairs(rule, new, index.prepared_, max_block)
+            rows, hashes = _key_hashes(rule, new)
+            too_large = np.zeros(len(new), dtype=bool)
+            too_large[rows] = _oversized(index, rule, hashes, rule.max_block or max_block)
+            state[rule.name], skipped[rule.name] = too_large, int(too_large.sum())
         elif isinstance(rule, TokenRule):
-            i, j, skipped = _token_pairs(rule, new, new_words, index, max_block)
+            rare = _rare_words(rule, index)
+            rows, tokens, hashes = _token_hashes(rule, new, new_words, rare)
+            too_large = _oversized(index, rule, hashes, max_block)
+            state[rule.name], skipped[rule.name] = (rare, (rows, tokens, hashes, too_large)), int(too_large.sum())
         elif isinstance(rule, NeighbourRule):
-            i, j, skipped = _neighbour_pairs(rule, new, new_chars, index, max_postings, chunk, self_join)
+            skipped[rule.name] = 0
         else:
             raise TypeError(f"unknown blocking rule {rule!r}")
+    found: dict[str, list] = {rule.name: [] for rule in rules}
+    for p in needed_partitions(new, index, rules):
+        part = index.partition(int(p))
+        for rule in rules:
+            if isinstance(rule, KeyRule):
+                i, j = _key_pairs(rule, new, part, state[rule.name])
+                found[rule.name].append((i, part.positions_[j]))
+            elif isinstance(rule, TokenRule):
+                rare, new_tokens = state[rule.name]
+                i, j = _token_pairs(rule, new_tokens, part, rare)
+                found[rule.name].append((i, part.positions_[j]))
+            else:
+                i, j, s = _neighbour_pairs(rule, new, new_chars, query, part, keep, max_postings, chunk,
+                                           rule.k + (1 if self_join else 0))
+                found[rule.name].append((i, part.positions_[j], s))
+    report, codes = {}, []
+    for rule in rules:
+        got = found[rule.name]
+        i = np.concatenate([g[0] for g in got]) if got else np.empty(0, dtype=np.int64)
+        j = np.concatenate([g[1] for g in got]) if got else np.empty(0, dtype=np.int64)
+        if isinstance(rule, NeighbourRule) and len(got) > 1:  # the nearest over all partitions
+            i, j, _ = best_k(i, j, np.concatenate([g[2] for g in got]), rule.k + (1 if self_join else 0))
         code = i * n_register + j
         if self_join:
             code = np.minimum(i, j) * n_register + np.maximum(i, j)
             code = code[i != j]
         code = np.unique(code)
-        report[rule.name] = {"pairs": int(len(code)), "skipped_keys": int(skipped)}
-        found.append(code)
-        log.info("blocking rule %s: %d pairs, %d oversized keys skipped", rule.name, len(code), skipped)
-    code = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
+        report[rule.name] = {"pairs": int(len(code)), "skipped_keys": skipped[rule.name]}
+        codes.append(code)
+        log.info("blocking rule %s: %d pairs, %d oversized keys skipped", rule.name, len(code), skipped[rule.name])
+    code = np.unique(np.concatenate(codes)) if codes else np.empty(0, dtype=np.int64)
     pairs = pd.DataFrame({"new": code // max(n_register, 1), "register": code % max(n_register, 1)})
     pairs.attrs["rules"] = report
     return pairs

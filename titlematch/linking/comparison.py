@@ -34,11 +34,11 @@ PAIR_CHUNK = 500_000
 
 class _Pairs:
     """Gathers the two sides' prepared values for every pair; per-record work is done once per side
-    (the register side is cached on the index, so a chunked run pays it once)."""
+    (the register side is cached on the register partition, so a chunked run pays it once)."""
 
-    def __init__(self, i: np.ndarray, j: np.ndarray, new: pd.DataFrame, index: RegisterIndex) -> None:
-        self.i, self.j, self.new, self.index = i, j, new, index
-        self.register = index.prepared_
+    def __init__(self, i: np.ndarray, j: np.ndarray, new: pd.DataFrame, part) -> None:
+        self.i, self.j, self.new, self.index = i, j, new, part
+        self.register = part.prepared_
 
     def values(self, column: str) -> tuple[np.ndarray, np.ndarray]:
         return (self.new[column].to_numpy(dtype=object)[self.i],
@@ -213,12 +213,36 @@ def compare(pairs: pd.DataFrame, new: pd.DataFrame, index: RegisterIndex, *,
     j = pairs["register"].to_numpy(dtype=np.int64)
     if new_chars is None or new_words is None:
         new_chars, new_words = index.vectorize(new["text"])
-    p = _Pairs(i, j, new.reset_index(drop=True), index)
-    tfidf = {"words": cosine(new_words, index.word_matrix_, i, j),
-             "chars": cosine(new_chars, index.char_matrix_, i, j)}
+    new = new.reset_index(drop=True)
+    # Each partition compares its own pairs; rows come back in the pairs' order.
+    owner = index.partition_of_[j] if len(j) else np.empty(0, dtype=np.int64)
+    parts, blocks = [], []
+    for k in np.unique(owner) if index.n_partitions > 1 else [0]:
+        part = index.partition(int(k))
+        at = np.flatnonzero(owner == k) if index.n_partitions > 1 else np.arange(len(j))
+        local = np.searchsorted(part.positions_, j[at])
+        parts.append(at)
+        blocks.append(_compare_part(i[at], local, new, part, index.fields_, new_chars, new_words, workers))
+    if not blocks:
+        blocks, parts = [_compare_part(i, j, new, index.partition(0), index.fields_, new_chars, new_words,
+                                       workers)], [np.arange(0)]
+    features = pd.concat(blocks, ignore_index=True) if len(blocks) > 1 else blocks[0]
+    order = np.empty(len(j), dtype=np.int64)
+    order[np.concatenate(parts)] = np.arange(len(j))
+    features = features.iloc[order].reset_index(drop=True) if len(blocks) > 1 else features
+    features.index = pairs.index
+    return features
+
+
+def _compare_part(i: np.ndarray, j: np.ndarray, new: pd.DataFrame, part, fields: Sequence[Field],
+                  new_chars: sp.csr_matrix, new_words: sp.csr_matrix, workers: int) -> pd.DataFrame:
+    """Features of pairs (new row ``i``, partition row ``j``) within one register partition."""
+    p = _Pairs(i, j, new, part)
+    tfidf = {"words": cosine(new_words, part.word_matrix_, i, j),
+             "chars": cosine(new_chars, part.char_matrix_, i, j)}
     features: dict[str, np.ndarray] = {}
     first_name = True
-    for f in index.fields_:
+    for f in fields:
         if f.kind == "name":
             features.update(_compare_name(f, p, workers, tfidf if first_name else {}))
             first_name = False
@@ -232,9 +256,9 @@ def compare(pairs: pd.DataFrame, new: pd.DataFrame, index: RegisterIndex, *,
             features.update(_compare_text(f, p, workers))
         else:
             features.update(_compare_exactish(f, p, workers))
-    if not any(f.kind == "name" for f in index.fields_):
+    if not any(f.kind == "name" for f in fields):
         features["text_chars"] = tfidf["chars"]
-    return pd.DataFrame(features, index=pairs.index)
+    return pd.DataFrame(features)
 
 
 def agreement_levels(features: pd.DataFrame, fields: Sequence[Field]) -> pd.DataFrame:

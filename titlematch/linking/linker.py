@@ -38,6 +38,7 @@ from ..confidence.routing import route
 from ..io import ROW_COLUMN, InputError, Rejects
 from ..io.columns import add_outputs, unused_name
 from .register import Field, RegisterIndex, check_fields, resolve_fields
+from .scoring import pairs_and_features
 
 log = logging.getLogger(__name__)
 
@@ -171,7 +172,8 @@ class EstablishmentLinker(BaseEstimator):
         In EM, a record's candidates are rivals (at most one is its match), as in linking to a
         register without duplicates.
     workers : int
-        Threads for rapidfuzz (-1 = all cores).
+        Processes (and rapidfuzz threads) preparing, blocking and comparing a batch (-1 = every
+        core); the output is the same for any number.
     output_prefix : str
         Written before the name of every column ``link`` / ``dedupe`` add. Input columns are never
         overwritten: an added column named like an input column is refused (``titlematch.io.columns``).
@@ -231,7 +233,8 @@ class EstablishmentLinker(BaseEstimator):
         if isinstance(register, RegisterIndex):
             self.index_ = register
         else:
-            self.index_ = RegisterIndex(self.fields, self.id_column).fit(register, source=source)
+            self.index_ = RegisterIndex(self.fields, self.id_column, workers=self.workers).fit(register,
+                                                                                           source=source)
         self.rules_ = list(self.rules) if self.rules is not None else default_rules(self.index_.fields_, k=self.k)
         if training is not None:
             self.model_ = self._fit_supervised(training, records)
@@ -248,11 +251,10 @@ class EstablishmentLinker(BaseEstimator):
         return frame[column].fillna("").astype(str)
 
     def _score_input(self, frame: pd.DataFrame, source: str = "<records>"):
-        prepared = self.index_.prepare(frame, source=source)
-        chars, words = self.index_.vectorize(prepared["text"])
-        pairs = candidate_pairs(prepared, self.index_, self.rules_, new_chars=chars, new_words=words,
-                                max_block=self.max_block)
-        features = compare(pairs, prepared, self.index_, new_chars=chars, new_words=words, workers=self.workers)
+        prepared = self.index_.prepare(frame, source=source, workers=self.workers)
+        chars, words = self.index_.vectorize(prepared["text"], workers=self.workers)
+        pairs, features = pairs_and_features(prepared, self.index_, self.rules_, new_chars=chars, new_words=words,
+                                             max_block=self.max_block, workers=self.workers)
         return prepared, chars, words, pairs, features
 
     def _fit_unsupervised(self, records: pd.DataFrame, source: str = "<records>") -> FellegiSunterModel:
@@ -501,8 +503,8 @@ class EstablishmentLinker(BaseEstimator):
         add_outputs(valid.head(0), pd.DataFrame(columns=DEDUPE_COLUMNS), prefix=self.output_prefix,
                     source=source)  # refuse a clash before the work, not after
         dedupe_id = unused_name(valid.columns, "_dedupe_id")
-        index = RegisterIndex(fields, dedupe_id).fit(valid.assign(**{dedupe_id: np.arange(n).astype(str)}),
-                                                       source=source)
+        index = RegisterIndex(fields, dedupe_id, workers=self.workers).fit(
+            valid.assign(**{dedupe_id: np.arange(n).astype(str)}), source=source)
         rules = list(self.rules) if self.rules is not None else default_rules(index.fields_, k=self.k)
         pairs = candidate_pairs(index.prepared_, index, rules, new_chars=index.char_matrix_,
                                 new_words=index.word_matrix_, max_block=self.max_block, self_join=True)

@@ -16,22 +16,25 @@ from __future__ import annotations
 
 import logging
 import os
-from pathlib import Path
 import re
 from dataclasses import asdict, dataclass
+from pathlib import Path
 from typing import Iterable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
-from sklearn.feature_extraction.text import TfidfVectorizer
+from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 from unidecode import unidecode
 
-from ..io.artefact import load_artefact, save_artefact
+from ..io.artefact import load_artefact, staged_directory, write_artefact
 from ..io import ROW_COLUMN, InputError, require_columns
 from ..normalize.address import normalize_addresses, normalize_postcodes
 from ..normalize.name import normalize_names
 from ..normalize.phonetic import phonetic_keys
+from ..runtime.pool import map_slices, resolve_workers, slices
+from .partitions import (CACHE_ROWS, PARTITION_ROWS, PartitionStore, RegisterPartition, assign_partitions,
+                         csr_from, region_keys)
 
 log = logging.getLogger(__name__)
 
@@ -207,12 +210,26 @@ _PREPARERS = {"name": _prepare_name, "address": _prepare_address, "city": _prepa
               "string": _prepare_text, "number": _prepare_digits, "date": _prepare_digits, "exact": _prepare_text}
 
 
-def prepare_records(frame: pd.DataFrame, fields: Sequence[Field], *, side: str = "new") -> pd.DataFrame:
+PARALLEL_ROWS = 2_000  # fewer rows per process than this are not worth a fork
+
+
+def prepare_records(frame: pd.DataFrame, fields: Sequence[Field], *, side: str = "new",
+                    workers: int = 1) -> pd.DataFrame:
     """Normalize the compared fields of ``frame`` into ``FIELD.PART`` columns plus ``text``.
 
     ``side`` picks ``Field.column`` ("new") or ``Field.register_column`` ("register").
     ``text`` is what the TF-IDF models read: the first name field, else the person names joined.
+    ``workers`` processes share the rows (-1 = every core); every row is prepared on its own, so
+    the result does not depend on it.
     """
+    parts = slices(len(frame), resolve_workers(workers), PARALLEL_ROWS)
+    if len(parts) > 1:
+        done = map_slices(lambda rows: _prepare_serial(frame.iloc[rows], fields, side), parts, workers)
+        return pd.concat(done, ignore_index=True)
+    return _prepare_serial(frame, fields, side)
+
+
+def _prepare_serial(frame: pd.DataFrame, fields: Sequence[Field], side: str) -> pd.DataFrame:
     columns: dict[str, pd.Series] = {}
     for f in fields:
         column = f.column if side == "new" else f.register_column
@@ -281,21 +298,46 @@ def _restore_vectorizer(make, table: pd.DataFrame, idf: np.ndarray) -> TfidfVect
     return vectorizer
 
 
-def _csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:
-    return {f"{name}_data": matrix.data, f"{name}_indices": matrix.indices, f"{name}_indptr": matrix.indptr,
-            f"{name}_shape": np.asarray(matrix.shape, dtype=np.int64)}
-
-
-def _csr_from(arrays: Mapping[str, np.ndarray], name: str) -> sp.csr_matrix:
-    shape = tuple(int(x) for x in arrays[f"{name}_shape"])
-    return sp.csr_matrix((arrays[f"{name}_data"], arrays[f"{name}_indices"], arrays[f"{name}_indptr"]),
-                         shape=shape)
-
-
 # --------------------------------------------------------------------------- the index
 
+def fit_tfidf(make, text: pd.Series, nonempty: np.ndarray, workers: int = 1) -> tuple[TfidfVectorizer, sp.csr_matrix]:
+    """``make()`` fitted on the non-empty texts, and the TF-IDF rows of every text.
+
+    The same vocabulary, idf and rows as ``TfidfVectorizer.fit`` then ``transform`` in one process
+    (scikit-learn numbers a fitted vocabulary's terms in sorted order, and the counts are the same
+    whoever counts them), but the n-grams are found and counted by ``workers`` processes.
+    """
+    values = text.fillna("").astype(str).to_numpy(dtype=object)
+    fit_rows = np.flatnonzero(nonempty)
+    fit_values = values[fit_rows] if len(fit_rows) else np.asarray(["_"], dtype=object)  # an all-empty register
+    n = resolve_workers(workers)
+    analyze = make().build_analyzer()
+
+    def terms(rows: slice) -> set:
+        found: set = set()
+        for value in fit_values[rows]:
+            found.update(analyze(value))
+        return found
+
+    found = map_slices(terms, slices(len(fit_values), n, PARALLEL_ROWS), workers)
+    vectorizer = make({term: k for k, term in enumerate(sorted(set().union(*found)))})
+    counts = _counts(vectorizer, values, workers)
+    fit_counts = counts[fit_rows] if len(fit_rows) else _counts(vectorizer, fit_values, 1)
+    transformer = TfidfTransformer(norm=vectorizer.norm, use_idf=True, smooth_idf=vectorizer.smooth_idf,
+                                   sublinear_tf=vectorizer.sublinear_tf).fit(fit_counts)
+    vectorizer.idf_ = transformer.idf_
+    return vectorizer, transformer.transform(counts).tocsr()
+
+
+def _counts(vectorizer: TfidfVectorizer, values: np.ndarray, workers: int) -> sp.csr_matrix:
+    """Raw term counts (what TfidfVectorizer weighs), counted by ``workers`` processes over slices."""
+    count = super(TfidfVectorizer, vectorizer).transform
+    parts = slices(len(values), resolve_workers(workers), PARALLEL_ROWS)
+    return sp.vstack(map_slices(lambda rows: count(values[rows]), parts, workers), format="csr")
+
+
 class RegisterIndex:
-    """A business register prepared for linking.
+    """A business register prepared for linking, whole in memory or in partitions on disk.
 
     Parameters
     ----------
@@ -303,20 +345,27 @@ class RegisterIndex:
         Compared fields (see ``resolve_fields``); default name, address, city, postcode, naics.
     id_column : str
         The register's identifier column; ids must be present and unique.
+    workers : int
+        Processes preparing and vectorizing the register (-1 = every core); the index is the same
+        for any number.
 
     Attributes (after ``fit`` or ``load``)
     ----------
     fields_ : list of Field actually used
     ids_ : ndarray of register ids (strings)
     display_ : DataFrame with ``register_name`` and ``register_address`` shown in link output
-    prepared_ : DataFrame of normalized field parts (see ``prepare_records``)
     char_vectorizer_, word_vectorizer_ : fitted TF-IDF models
-    char_matrix_, word_matrix_ : the register's TF-IDF rows (CSR, L2-normalized)
+    char_postings_, word_frequency_ : register names holding each character n-gram / each word
+    partition_of_ : partition of each register record (all 0 for an index built in memory)
+    prepared_, char_matrix_, word_matrix_ : the whole register's prepared values and TF-IDF rows
+        (CSR, L2-normalized); on a partitioned index these assemble every partition, so linking
+        reads ``partition(k)`` instead.
     """
 
-    def __init__(self, fields=None, id_column: str = "register_id") -> None:
+    def __init__(self, fields=None, id_column: str = "register_id", workers: int = -1) -> None:
         self.fields = fields
         self.id_column = id_column
+        self.workers = workers
 
     def fit(self, register: pd.DataFrame, *, source: str = "<register>") -> "RegisterIndex":
         """Validate and prepare ``register``; returns self."""
@@ -341,16 +390,14 @@ class RegisterIndex:
         self.fields_ = check_fields(register, resolve_fields(self.fields), source, "register")
         self.ids_ = ids.to_numpy(dtype=object)
         self.display_ = self._display(register)
-        self.prepared_ = prepare_records(register, self.fields_, side="register")
-        text = self.prepared_["text"]
-        self.char_vectorizer_ = _char_vectorizer()
-        self.word_vectorizer_ = _word_vectorizer()
-        nonempty = text[text != ""]
-        if nonempty.empty:
-            nonempty = pd.Series(["_"], dtype=object)  # an all-empty register still gets a usable model
-        self.char_vectorizer_.fit(nonempty)
-        self.word_vectorizer_.fit(nonempty)
-        self.char_matrix_, self.word_matrix_ = self.vectorize(text)
+        prepared = prepare_records(register, self.fields_, side="register", workers=self.workers)
+        nonempty = (prepared["text"] != "").to_numpy()
+        self.char_vectorizer_, chars = fit_tfidf(_char_vectorizer, prepared["text"], nonempty, self.workers)
+        self.word_vectorizer_, words = fit_tfidf(_word_vectorizer, prepared["text"], nonempty, self.workers)
+        self.char_postings_ = np.bincount(chars.indices, minlength=chars.shape[1])
+        self.word_frequency_ = np.bincount(words.indices, minlength=words.shape[1])
+        self.partition_of_ = np.zeros(len(ids), dtype=np.int32)
+        self._parts, self._store = [RegisterPartition(np.arange(len(ids)), prepared, chars, words)], None
         log.info("%s: register index of %d records, %d character n-grams, %d words", source, len(ids),
                  len(self.char_vectorizer_.vocabulary_), len(self.word_vectorizer_.vocabulary_))
         return self
@@ -372,33 +419,95 @@ class RegisterIndex:
     def __len__(self) -> int:
         return len(self.ids_)
 
-    def prepare(self, frame: pd.DataFrame, *, source: str = "<records>") -> pd.DataFrame:
+    # ---------------------------------------------------------------- partitions
+    @property
+    def n_partitions(self) -> int:
+        return len(self._store) if self._store is not None else len(self._parts)
+
+    def partition(self, k: int) -> RegisterPartition:
+        """Partition ``k`` (read from disk and checked on first use when the index was loaded)."""
+        return self._store.get(k) if self._store is not None else self._parts[k]
+
+    def partitions_of_regions(self, regions: pd.Series) -> np.ndarray:
+        """The partitions holding the register's records of these region keys (see ``region_keys``)."""
+        regions = regions[regions.fillna("") != ""]
+        return np.unique(assign_partitions(regions, self.n_partitions)) if len(regions) else np.empty(0, int)
+
+    def _whole(self) -> RegisterPartition:
+        if self.n_partitions == 1:
+            return self.partition(0)
+        parts = [self.partition(k) for k in range(self.n_partitions)]
+        positions = np.concatenate([p.positions_ for p in parts])
+        order = np.argsort(positions, kind="stable")
+        prepared = pd.concat([p.prepared_ for p in parts], ignore_index=True).iloc[order]
+        chars = sp.vstack([p.char_matrix_ for p in parts], format="csr")[order]
+        words = sp.vstack([p.word_matrix_ for p in parts], format="csr")[order]
+        return RegisterPartition(positions[order], prepared, chars, words)
+
+    @property
+    def prepared_(self) -> pd.DataFrame:
+        return self._whole().prepared_
+
+    @property
+    def char_matrix_(self) -> sp.csr_matrix:
+        return self._whole().char_matrix_
+
+    @property
+    def word_matrix_(self) -> sp.csr_matrix:
+        return self._whole().word_matrix_
+
+    # ---------------------------------------------------------------- records
+    def prepare(self, frame: pd.DataFrame, *, source: str = "<records>", workers: int = 1) -> pd.DataFrame:
         """Prepare incoming records with the register's fields (``Field.column`` names)."""
         check_fields(frame, [f for f in self.fields_ if not f.optional], source, "new")
-        return prepare_records(frame, self.fields_, side="new")
+        return prepare_records(frame, self.fields_, side="new", workers=workers)
 
-    def vectorize(self, text: pd.Series) -> tuple[sp.csr_matrix, sp.csr_matrix]:
-        """Character and word TF-IDF rows for ``text`` (L2-normalized CSR)."""
-        values = text.fillna("").astype(str)
-        return (self.char_vectorizer_.transform(values).tocsr(), self.word_vectorizer_.transform(values).tocsr())
+    def vectorize(self, text: pd.Series, workers: int = 1) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+        """Character and word TF-IDF rows for ``text`` (L2-normalized CSR), by ``workers`` processes."""
+        values = text.fillna("").astype(str).to_numpy(dtype=object)
+        parts = slices(len(values), resolve_workers(workers), PARALLEL_ROWS)
+        if len(parts) <= 1:
+            return (self.char_vectorizer_.transform(values).tocsr(), self.word_vectorizer_.transform(values).tocsr())
+        done = map_slices(lambda rows: (self.char_vectorizer_.transform(values[rows]).tocsr(),
+                                        self.word_vectorizer_.transform(values[rows]).tocsr()), parts, workers)
+        return (sp.vstack([c for c, _ in done], format="csr"), sp.vstack([w for _, w in done], format="csr"))
 
-    def save(self, directory: str | os.PathLike) -> Path:
-        """Save as a checksummed artefact (Parquet + .npy, no pickle)."""
+    # ---------------------------------------------------------------- saving
+    def save(self, directory: str | os.PathLike, *, partition_rows: int | None = None) -> Path:
+        """Save as a checksummed artefact (Parquet + .npy, no pickle) in partitions of about
+        ``partition_rows`` records (default ``PARTITION_ROWS``), written beside ``directory`` and
+        swapped into place whole: an interrupted save leaves the previous index (or none)."""
+        rows = partition_rows or PARTITION_ROWS
+        if rows < 1:
+            raise ValueError(f"partition_rows must be at least 1, got {rows}")
+        whole = self._whole()
+        count = max(1, -(-len(self) // rows))
+        owner = assign_partitions(region_keys(whole.prepared_, self.fields_), count)
         register = pd.concat([pd.DataFrame({"register_id": self.ids_}), self.display_.reset_index(drop=True)],
                              axis=1)
-        arrays = {"char_idf": self.char_vectorizer_.idf_, "word_idf": self.word_vectorizer_.idf_}
-        arrays.update(_csr_arrays("char_matrix", self.char_matrix_))
-        arrays.update(_csr_arrays("word_matrix", self.word_matrix_))
-        meta = {"id_column": self.id_column, "fields": [asdict(f) for f in self.fields_], "records": len(self)}
-        return save_artefact(directory, ARTEFACT_KIND,
-                             {"register": register, "prepared": self.prepared_,
-                              "char_vocabulary": _vocabulary_table(self.char_vectorizer_),
-                              "word_vocabulary": _vocabulary_table(self.word_vectorizer_)},
-                             arrays=arrays, meta=meta)
+        with staged_directory(directory) as staging:
+            entries = []
+            for k in range(count):
+                name = f"part-{k:05d}"
+                members = np.flatnonzero(owner == k)
+                entries.append({"name": name, "rows": int(len(members)),
+                                "manifest_sha256": whole.take(members, name).write(staging / name)})
+            arrays = {"char_idf": self.char_vectorizer_.idf_, "word_idf": self.word_vectorizer_.idf_,
+                      "char_postings": self.char_postings_, "word_frequency": self.word_frequency_,
+                      "partition_of": owner.astype(np.int32)}
+            meta = {"id_column": self.id_column, "fields": [asdict(f) for f in self.fields_], "records": len(self),
+                    "partitions": entries}
+            write_artefact(staging, ARTEFACT_KIND,
+                           {"register": register, "char_vocabulary": _vocabulary_table(self.char_vectorizer_),
+                            "word_vocabulary": _vocabulary_table(self.word_vectorizer_)},
+                           arrays=arrays, meta=meta)
+        return Path(directory)
 
     @classmethod
-    def load(cls, directory: str | os.PathLike) -> "RegisterIndex":
-        """Load an index saved by ``save``; raises ``ArtefactError`` if it was altered."""
+    def load(cls, directory: str | os.PathLike, *, cache_rows: int = CACHE_ROWS) -> "RegisterIndex":
+        """Open an index saved by ``save``; raises ``ArtefactError`` naming a file or partition that is
+        missing or was altered. Partitions are read when linking first needs them, and kept while
+        the ones in memory hold at most ``cache_rows`` records."""
         art = load_artefact(directory, ARTEFACT_KIND)
         fields = [Field(**spec) for spec in art.meta["fields"]]
         index = cls(fields=fields, id_column=art.meta.get("id_column", "register_id"))
@@ -406,11 +515,21 @@ class RegisterIndex:
         register = art.tables["register"]
         index.ids_ = register["register_id"].astype(str).to_numpy(dtype=object)
         index.display_ = register[["register_name", "register_address"]].astype(str).reset_index(drop=True)
-        index.prepared_ = art.tables["prepared"].astype(str)
         index.char_vectorizer_ = _restore_vectorizer(_char_vectorizer, art.tables["char_vocabulary"],
                                                      art.arrays["char_idf"])
         index.word_vectorizer_ = _restore_vectorizer(_word_vectorizer, art.tables["word_vocabulary"],
                                                      art.arrays["word_idf"])
-        index.char_matrix_ = _csr_from(art.arrays, "char_matrix")
-        index.word_matrix_ = _csr_from(art.arrays, "word_matrix")
+        if "partitions" in art.meta:
+            index._parts, index._store = [], PartitionStore(Path(directory), art.meta["partitions"], cache_rows)
+            index.char_postings_ = art.arrays["char_postings"]
+            index.word_frequency_ = art.arrays["word_frequency"]
+            index.partition_of_ = art.arrays["partition_of"]
+            return index
+        # An index saved before partitions existed: one partition, read whole.
+        chars, words = csr_from(art.arrays, "char_matrix"), csr_from(art.arrays, "word_matrix")
+        index._parts = [RegisterPartition(np.arange(len(index.ids_)), art.tables["prepared"].astype(str), chars, words)]
+        index._store = None
+        index.char_postings_ = np.bincount(chars.indices, minlength=chars.shape[1])
+        index.word_frequency_ = np.bincount(words.indices, minlength=words.shape[1])
+        index.partition_of_ = np.zeros(len(index.ids_), dtype=np.int32)
         return index

@@ -1,0 +1,157 @@
+"""A register index in partitions: each a slice of the register that fits in memory on its own.
+
+Rows go to a partition by a region key (the postcode, else the place name), hashed, so one
+postcode's establishments share a partition. A partition holds the
+prepared field values and the TF-IDF rows of its records, and their positions in the whole
+register; what blocking needs about the whole register (how many names hold each n-gram and each
+word, the ids shown in the output) stays in the index itself.
+
+On disk a partition is a checksummed artefact of its own, ``part-NNNNN/``, whose manifest's
+SHA-256 the index's manifest records: a partition that is missing, replaced or altered is refused
+by name when the index opens (missing, replaced) or when the partition is read (altered).
+
+Linking reads the partitions one at a time and keeps the most recently used ones while they stay
+under a row budget, so an index larger than memory links in the memory of a few partitions.
+"""
+from __future__ import annotations
+
+import hashlib
+import logging
+from collections import OrderedDict
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from ..io.artefact import MANIFEST, ArtefactError, load_artefact, write_artefact
+
+log = logging.getLogger(__name__)
+
+PARTITION_KIND = "register-partition"
+PARTITION_ROWS = 1_000_000  # default rows per partition when an index is saved
+CACHE_ROWS = 4_000_000  # partitions kept in memory while linking, in register rows
+
+
+class RegisterPartition:
+    """Some of a register's records: ``positions_`` (their rows in the whole register, ascending),
+    ``prepared_`` (normalized field parts), ``char_matrix_`` and ``word_matrix_`` (TF-IDF rows)."""
+
+    def __init__(self, positions: np.ndarray, prepared: pd.DataFrame, char_matrix: sp.csr_matrix,
+                 word_matrix: sp.csr_matrix, name: str = "memory") -> None:
+        self.positions_ = np.asarray(positions, dtype=np.int64)
+        self.prepared_ = prepared.reset_index(drop=True)
+        self.char_matrix_ = char_matrix
+        self.word_matrix_ = word_matrix
+        self.name = name
+
+    def __len__(self) -> int:
+        return len(self.positions_)
+
+    def take(self, rows: np.ndarray, name: str) -> "RegisterPartition":
+        return RegisterPartition(self.positions_[rows], self.prepared_.iloc[rows], self.char_matrix_[rows],
+                                 self.word_matrix_[rows], name)
+
+    def write(self, directory: Path) -> str:
+        """Write into ``directory`` (inside a staging directory); returns its manifest's SHA-256."""
+        directory.mkdir()
+        arrays = {"positions": self.positions_}
+        arrays.update(csr_arrays("char_matrix", self.char_matrix_))
+        arrays.update(csr_arrays("word_matrix", self.word_matrix_))
+        write_artefact(directory, PARTITION_KIND, {"prepared": self.prepared_}, arrays=arrays,
+                       meta={"rows": len(self)})
+        return sha256_of(directory / MANIFEST)
+
+    @classmethod
+    def read(cls, directory: Path, expected_sha256: str) -> "RegisterPartition":
+        check_manifest(directory, expected_sha256)
+        art = load_artefact(directory, PARTITION_KIND)
+        return cls(art.arrays["positions"], art.tables["prepared"].astype(str), csr_from(art.arrays, "char_matrix"),
+                   csr_from(art.arrays, "word_matrix"), directory.name)
+
+
+def region_keys(prepared: pd.DataFrame, fields) -> pd.Series:
+    """The partitioning key of each prepared record: its postcode, else its place."""
+    postcode = next((f for f in fields if f.kind == "postcode"), None)
+    if postcode is not None:
+        return prepared[f"{postcode.name}.value"].astype(str)
+    city = next((f for f in fields if f.kind == "city"), None)
+    if city is not None:
+        return prepared[f"{city.name}.value"].astype(str)
+    return pd.Series("", index=prepared.index, dtype=object)
+
+
+def region_columns(fields) -> set[str]:
+    """Prepared columns whose equal values imply the same region (so the same partition)."""
+    postcode = next((f for f in fields if f.kind == "postcode"), None)
+    if postcode is not None:
+        return {f"{postcode.name}.value"}
+    city = next((f for f in fields if f.kind == "city"), None)
+    return {f"{city.name}.value"} if city is not None else set()
+
+
+def assign_partitions(regions: pd.Series, partitions: int) -> np.ndarray:
+    """Partition number of each record: a stable hash of its region; records without one are dealt
+    round the partitions by position."""
+    hashed = pd.util.hash_array(regions.fillna("").astype(str).to_numpy(dtype=object))
+    out = (hashed % np.uint64(partitions)).astype(np.int64)
+    empty = (regions.fillna("") == "").to_numpy()
+    out[empty] = np.flatnonzero(empty) % partitions
+    return out
+
+
+class PartitionStore:
+    """The partitions of a saved index, read on demand, checked, and kept while under ``cache_rows``."""
+
+    def __init__(self, directory: Path, entries: list[dict], cache_rows: int = CACHE_ROWS) -> None:
+        self.directory = Path(directory)
+        self.entries = entries
+        self.cache_rows = cache_rows
+        self._cache: OrderedDict[int, RegisterPartition] = OrderedDict()
+        for entry in entries:  # missing or replaced partitions are found when the index opens
+            check_manifest(self.directory / entry["name"], entry["manifest_sha256"])
+
+    def __len__(self) -> int:
+        return len(self.entries)
+
+    def get(self, k: int) -> RegisterPartition:
+        if k in self._cache:
+            self._cache.move_to_end(k)
+            return self._cache[k]
+        entry = self.entries[k]
+        part = RegisterPartition.read(self.directory / entry["name"], entry["manifest_sha256"])
+        log.info("read register partition %s (%d rows)", entry["name"], len(part))
+        self._cache[k] = part
+        while len(self._cache) > 1 and sum(len(p) for p in self._cache.values()) > self.cache_rows:
+            self._cache.popitem(last=False)
+        return part
+
+    def __getstate__(self) -> dict:
+        # Sent to a Dask worker: the worker reads the partitions itself, from the same directory.
+        state = dict(self.__dict__)
+        state["_cache"] = OrderedDict()
+        return state
+
+
+def check_manifest(directory: Path, expected_sha256: str) -> None:
+    path = directory / MANIFEST
+    if not path.is_file():
+        raise ArtefactError(f"{directory}: register partition missing (listed in the index's manifest)")
+    if sha256_of(path) != expected_sha256:
+        raise ArtefactError(f"{directory}: register partition replaced or altered since the index was saved "
+                            "(its manifest's checksum differs)")
+
+
+def sha256_of(path: Path) -> str:
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:
+    return {f"{name}_data": matrix.data, f"{name}_indices": matrix.indices, f"{name}_indptr": matrix.indptr,
+            f"{name}_shape": np.asarray(matrix.shape, dtype=np.int64)}
+
+
+def csr_from(arrays, name: str) -> sp.csr_matrix:
+    shape = tuple(int(x) for x in arrays[f"{name}_shape"])
+    return sp.csr_matrix((arrays[f"{name}_data"], arrays[f"{name}_indices"], arrays[f"{name}_indptr"]),
+                         shape=shape)

@@ -1,0 +1,64 @@
+"""Candidate pairs and their features for a batch of records, on every core.
+
+Blocking and comparison treat each incoming record on its own: its pairs and their features do
+not depend on the other records of the batch. So the batch is cut into contiguous slices, each
+slice goes through ``candidate_pairs`` and ``compare`` in a forked process (which starts with the
+register index already in memory), and the slices' results are put back together in order. The
+pairs and features are the same, value for value and in the same order, for any number of workers.
+
+Example
+-------
+>>> pairs, features = pairs_and_features(prepared, index, rules, workers=-1)   # doctest: +SKIP
+"""
+from __future__ import annotations
+
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from ..runtime.pool import map_slices, resolve_workers, slices
+from .blocking import KeyRule, TokenRule, block_sizes, candidate_pairs
+from .comparison import compare
+from .register import RegisterIndex
+
+SLICE_ROWS = 500  # fewer records per process than this are not worth a fork
+
+
+def pairs_and_features(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
+                       new_chars: sp.csr_matrix | None = None, new_words: sp.csr_matrix | None = None,
+                       max_block: int = 100, workers: int = -1) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """``candidate_pairs`` then ``compare`` for the prepared records ``new``, by ``workers`` processes
+    (-1 = every core). Returns (pairs, features) as the two functions would in one process."""
+    new = new.reset_index(drop=True)
+    if new_chars is None or new_words is None:
+        new_chars, new_words = index.vectorize(new["text"], workers=workers)
+    parts = slices(len(new), resolve_workers(workers), SLICE_ROWS)
+    if len(parts) <= 1:
+        pairs = candidate_pairs(new, index, rules, new_chars=new_chars, new_words=new_words, max_block=max_block)
+        return pairs, compare(pairs, new, index, new_chars=new_chars, new_words=new_words, workers=workers)
+    for rule in rules:  # counted once here, before the fork, instead of once in every worker
+        if isinstance(rule, (KeyRule, TokenRule)):
+            block_sizes(index, rule)
+
+    def one(rows: slice):
+        records = new.iloc[rows].reset_index(drop=True)
+        chars, words = new_chars[rows], new_words[rows]
+        pairs = candidate_pairs(records, index, rules, new_chars=chars, new_words=words, max_block=max_block)
+        # One thread per process: the processes already fill the cores.
+        return pairs, compare(pairs, records, index, new_chars=chars, new_words=words, workers=1)
+
+    done = map_slices(one, parts, workers)
+    pairs = pd.concat([p.assign(new=p["new"] + rows.start) for (p, _), rows in zip(done, parts)],
+                      ignore_index=True)
+    features = pd.concat([f for _, f in done], ignore_index=True)
+    report: dict = {}
+    for p, _ in done:
+        for name, info in p.attrs.get("rules", {}).items():
+            total = report.setdefault(name, {"pairs": 0, "skipped_keys": 0})
+            total["pairs"] += info["pairs"]
+            total["skipped_keys"] += info["skipped_keys"]
+    pairs["new"] = pairs["new"].astype(np.int64)
+    pairs.attrs["rules"] = report
+    return pairs, features
