@@ -14,15 +14,30 @@ precision of accepted records alone, the referral count, pairs completeness and 
 ratio of blocking, and the hard negatives (new branches of register chains: the chain's
 name at an address the register does not have) and how many were linked.
 
-    python benchmarks/bench_link.py                                   # 20,000 x 3,000, with the peer
-    python benchmarks/bench_link.py --register-rows 1000000 --new 100000 --skip-peer
+Also printed: candidate pairs scored per second per core, against the limit of one
+rapidfuzz Jaro-Winkler comparison of the two names per pair (the least work that can score a
+pair), measured on the same pairs on one core; and the peak memory of the process and its
+forked workers (resident set of this process plus the unique memory of each child).
+
+With ``--index-dir`` the index is also saved in partitions (``--partition-rows``) and the
+records are linked against the saved index, read back partition by partition, as
+``titlematch link --register DIR`` does; ``--dask`` then runs ``titlematch link`` with the
+Dask engine on a local cluster of 2 single-threaded workers and with the local engine, on the
+same files, and checks the two outputs are the same bytes.
+
+    python benchmarks/bench_link.py --register-rows 50000 --new 5000           # mid case, with the peer
+    python benchmarks/bench_link.py --register-rows 2000000 --new 200000 --skip-peer \
+        --index-dir /tmp/register_index --partition-rows 500000 --dask          # large case
 """
 from __future__ import annotations
 
 import argparse
 import resource
 import sys
+import tempfile
+import threading
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -31,10 +46,58 @@ from titlematch.linking.blocking import blocking_quality
 from titlematch.linking.linker import EstablishmentLinker
 from titlematch.linking.register import RegisterIndex
 from titlematch.datasets.scenario import make_register_scenario
+from titlematch.runtime.pool import resolve_workers
 
 
 def peak_rss_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
+
+
+class TreeMemory:
+    """Peak memory of this process and its children, sampled every ``interval`` seconds: this
+    process's resident set plus each child's unique set (forked workers share the parent's pages)."""
+
+    def __init__(self, interval: float = 0.5):
+        self.interval, self.peak, self._stop = interval, 0, threading.Event()
+
+    def sample(self) -> int:
+        import psutil
+        me = psutil.Process()
+        total = me.memory_info().rss
+        for child in me.children(recursive=True):
+            try:
+                total += child.memory_full_info().uss
+            except (psutil.Error, OSError):
+                pass
+        return total
+
+    def __enter__(self):
+        def loop():
+            while not self._stop.is_set():
+                self.peak = max(self.peak, self.sample())
+                time.sleep(self.interval)
+        self._thread = threading.Thread(target=loop, daemon=True)
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc):
+        self._stop.set()
+        self._thread.join()
+
+    @property
+    def peak_mb(self) -> float:
+        return self.peak / 2 ** 20
+
+
+def limit_pairs_per_second(out_pairs: pd.DataFrame, index: RegisterIndex, new_prepared: pd.DataFrame) -> float:
+    """The limit: pairs per second of one Jaro-Winkler comparison of the two names, one core."""
+    from rapidfuzz import process
+    from rapidfuzz.distance import JaroWinkler
+    a = new_prepared["name.key"].to_numpy(dtype=object)[out_pairs["new"].to_numpy()]
+    names = index.display_["register_name"].str.lower().to_numpy(dtype=object)[out_pairs["register"].to_numpy()]
+    start = time.perf_counter()
+    process.cpdist(a, names, scorer=JaroWinkler.normalized_similarity, workers=1)
+    return len(a) / max(time.perf_counter() - start, 1e-9)
 
 
 def scores(predicted: pd.DataFrame, truth: dict[str, str]) -> dict:
@@ -53,16 +116,25 @@ def hard_negatives(data: dict) -> set[str]:
     return set(kinds.loc[kinds["kind"] == "new_branch", "record_id"])
 
 
-def run_titlematch(data: dict, truth: dict[str, str], workers: int) -> dict:
+def run_titlematch(data: dict, truth: dict[str, str], workers: int, index_dir: str | None = None,
+                   partition_rows: int | None = None) -> dict:
     start = time.perf_counter()
-    index = RegisterIndex().fit(data["register"])
+    index = RegisterIndex(workers=workers).fit(data["register"])
     built = time.perf_counter()
+    saved_s = None
+    if index_dir:  # link against the saved index, read back partition by partition
+        index.save(index_dir, partition_rows=partition_rows)
+        del index
+        index = RegisterIndex.load(index_dir)
+        saved_s = time.perf_counter() - built
+        built = time.perf_counter()
     linker = EstablishmentLinker(workers=workers).fit(index, records=data["new"])  # EM on the batch
     out = linker.link(data["new"])
     done = time.perf_counter()
     linked = out[out["decision"] != "no-match"]
     accepted = out[out["decision"] == "accept"]
-    result = {"index_s": built - start, "link_s": done - built, "out": out, "linker": linker}
+    result = {"index_s": built - start - (saved_s or 0.0), "save_s": saved_s, "link_s": done - built, "out": out,
+              "linker": linker, "partitions": index.n_partitions}
     result["all"] = scores(linked, truth)
     result["accepted"] = scores(accepted, truth)
     result["referred"] = int((out["decision"] == "refer").sum())
@@ -72,6 +144,7 @@ def run_titlematch(data: dict, truth: dict[str, str], workers: int) -> dict:
     true_pairs = pd.DataFrame({"new": row[[r for r, _ in true_links]].to_numpy(),
                                "register": position[[g for _, g in true_links]].to_numpy()})
     pairs = linker.candidate_pairs(data["new"])
+    result["limit_pps"] = limit_pairs_per_second(pairs, index, index.prepare(data["new"], workers=workers))
     result["blocking"] = blocking_quality(pairs, true_pairs, len(out), len(index))
     result["rules"] = pairs.attrs["rules"]
     return result
@@ -120,7 +193,13 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--workers", type=int, default=-1)
     parser.add_argument("--skip-peer", action="store_true", help="do not run the recordlinkage pipeline")
+    parser.add_argument("--index-dir", help="also save the index here in partitions and link against it")
+    parser.add_argument("--partition-rows", type=int, default=None)
+    parser.add_argument("--dask", action="store_true",
+                        help="with --index-dir: titlematch link with the Dask engine (2 workers) and the local one")
+    parser.add_argument("--chunk-rows", type=int, default=50_000, help="records per chunk for the --dask runs")
     args = parser.parse_args(argv)
+    memory = TreeMemory().__enter__()
 
     t0 = time.perf_counter()
     data = make_register_scenario(seed=args.seed, register_rows=args.register_rows, new_records=args.new)
@@ -128,13 +207,19 @@ def main(argv=None) -> int:
     print(f"scenario: register {len(data['register']):,} rows, new {len(data['new']):,} records "
           f"({sum(1 for v in truth.values() if v):,} on the register), built in {time.perf_counter() - t0:.1f} s")
 
-    ours = run_titlematch(data, truth, args.workers)
+    ours = run_titlematch(data, truth, args.workers, args.index_dir, args.partition_rows)
     a, acc, bq = ours["all"], ours["accepted"], ours["blocking"]
-    print(f"titlematch: index {ours['index_s']:.1f} s, link {ours['link_s']:.1f} s; "
+    cores = resolve_workers(args.workers)
+    per_core = bq["pairs"] / ours["link_s"] / cores
+    saved = f", saved in {ours['partitions']} partitions {ours['save_s']:.1f} s" if ours["save_s"] is not None else ""
+    print(f"titlematch on {cores} core(s): index {ours['index_s']:.1f} s{saved}, link {ours['link_s']:.1f} s; "
           f"F1 {a['f1']:.4f} (precision {a['precision']:.4f}, recall {a['recall']:.4f}); "
           f"accepted precision {acc['precision']:.4f} on {acc['links']:,}, referred {ours['referred']:,}")
     print(f"  blocking: {bq['pairs']:,} pairs, pairs completeness {bq['pairs_completeness']:.4f}, "
           f"reduction ratio {bq['reduction_ratio']:.6f}")
+    print(f"  {per_core:,.0f} candidate pairs scored per second per core (blocking, comparisons, model, "
+          f"decisions); the limit, one Jaro-Winkler of the names per pair on one core: {ours['limit_pps']:,.0f} "
+          f"pairs/s; ratio {per_core / ours['limit_pps']:.4f}")
     for name, info in ours["rules"].items():
         print(f"    {name}: {info['pairs']:,} pairs, {info['skipped_keys']:,} oversized keys skipped")
     negatives = hard_negatives(data)
@@ -156,11 +241,38 @@ def main(argv=None) -> int:
             print(f"{label}: {peer['time_s']:.1f} s on {peer['pairs']:,} pairs; F1 {p['f1']:.4f} "
                   f"(precision {p['precision']:.4f}, recall {p['recall']:.4f}); hard negatives linked "
                   f"{len(negatives & set(peer['predicted']['record_id'])):,}")
-            print(f"  titlematch vs this peer: F1 {100 * (a['f1'] - p['f1']):+.1f} points; time ratio "
-                  f"{peer['time_s'] / total:.1f}x (index + link), {peer['time_s'] / ours['link_s']:.1f}x "
-                  f"(link with a built index)")
-    print(f"peak RSS {peak_rss_mb():,.0f} MB")
+            print(f"  titlematch vs this peer: F1 {100 * (a['f1'] - p['f1']):+.1f} points; titlematch's time "
+                  f"(index + link) = {total / peer['time_s']:.3f}x the peer's ({peer['time_s'] / total:.1f}x "
+                  f"faster; {peer['time_s'] / ours['link_s']:.1f}x with a built index)")
+    if args.dask and args.index_dir:
+        run_engines(data, args)
+    memory.__exit__()
+    print(f"peak memory {memory.peak_mb:,.0f} MB (this process and its workers; peak RSS of this process "
+          f"{peak_rss_mb():,.0f} MB)")
     return 0
+
+
+def run_engines(data: dict, args) -> None:
+    """``titlematch link`` on the saved index with the Dask engine (2 workers) and the local engine."""
+    import distributed
+    from titlematch.cli import main as cli
+
+    work = Path(tempfile.mkdtemp(prefix="bench_link_"))
+    data["new"].to_csv(work / "new.csv", index=False)
+    common = ["--register", args.index_dir, "--quiet", "--chunk-rows", str(args.chunk_rows)]
+    start = time.perf_counter()
+    assert cli(["link", str(work / "new.csv"), "--out", str(work / "local.csv"), *common]) == 0
+    local_s = time.perf_counter() - start
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        start = time.perf_counter()
+        assert cli(["link", str(work / "new.csv"), "--out", str(work / "dask.csv"), "--engine", "dask",
+                    "--scheduler", cluster.scheduler_address, *common]) == 0
+        dask_s = time.perf_counter() - start
+    same = (work / "local.csv").read_bytes() == (work / "dask.csv").read_bytes()
+    print(f"titlematch link on the saved index, {len(data['new']):,} records in chunks of {args.chunk_rows:,}: "
+          f"local engine {local_s:.1f} s, Dask engine (2 workers) {dask_s:.1f} s "
+          f"({local_s / dask_s:.2f}x the local engine's speed); outputs identical: {same}")
 
 
 if __name__ == "__main__":

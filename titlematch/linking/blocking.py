@@ -175,9 +175,8 @@ def _hash(values: np.ndarray) -> np.ndarray:
     return pd.util.hash_array(np.asarray(uniques, dtype=object))[codes] if len(codes) else np.empty(0, np.uint64)
 
 
-def _key_hashes(rule: KeyRule, prepared: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+def _key_hashes(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(rows with a key, hash of their key)."""
-    keys = _keys(prepared, rule.columns)
     rows = np.flatnonzero(keys != "")
     return rows, _hash(keys[rows])
 
@@ -214,7 +213,7 @@ def block_sizes(index: RegisterIndex, rule) -> tuple[np.ndarray, np.ndarray]:
         for k in range(index.n_partitions):
             part = index.partition(k)
             if isinstance(rule, KeyRule):
-                found.append(_key_hashes(rule, part.prepared_)[1])
+                found.append(_key_hashes(_register_keys(part, rule.columns))[1])
             else:
                 found.append(_token_hashes(rule, part.prepared_, part.word_matrix_, _rare_words(rule, index))[2])
         cache[key] = np.unique(np.concatenate(found) if found else np.empty(0, np.uint64), return_counts=True)
@@ -231,10 +230,18 @@ def _oversized(index: RegisterIndex, rule, hashes: np.ndarray, max_block: int) -
 
 # --------------------------------------------------------------------------- rules on one partition
 
+def _register_keys(part, columns: Sequence[str]) -> np.ndarray:
+    """The partition's keys for ``columns``, kept on the partition (the same for every batch)."""
+    cache = part.__dict__.setdefault("_keys", {})
+    if tuple(columns) not in cache:
+        cache[tuple(columns)] = _keys(part.prepared_, columns)
+    return cache[tuple(columns)]
+
+
 def _key_pairs(rule: KeyRule, new: pd.DataFrame, part, too_large: np.ndarray):
     """Pairs of a key rule between ``new`` and one partition; ``too_large`` marks new rows whose block
     is over the limit in the whole register."""
-    new_codes, register_codes = _codes(_keys(new, rule.columns), _keys(part.prepared_, rule.columns))
+    new_codes, register_codes = _codes(_keys(new, rule.columns), _register_keys(part, rule.columns))
     i, j, _ = join_codes(np.arange(len(new)), new_codes, np.arange(len(part)), register_codes, 0, skip=too_large)
     return i, j
 
@@ -259,9 +266,18 @@ def top_k(similarity: sp.csr_matrix, k: int, min_similarity: float) -> tuple[np.
 
 def _top_k(similarity: sp.csr_matrix, k: int, min_similarity: float):
     similarity = similarity.tocsr()
+    similarity.sort_indices()  # ties then fall to the smaller column, as in best_k
     rows = np.repeat(np.arange(similarity.shape[0]), np.diff(similarity.indptr))
-    keep = similarity.data >= min_similarity
-    return best_k(rows[keep], similarity.indices[keep].astype(np.int64), similarity.data[keep], k)
+    cols, data = similarity.indices, similarity.data
+    keep = data >= min_similarity
+    rows, cols, data = rows[keep], cols[keep], data[keep]
+    # One stable float sort orders by row, then by decreasing similarity (similarities lie in [0, 1];
+    # float32 similarities and row numbers below 2^20 are exact in this float64 key).
+    order = np.argsort(rows.astype(np.float64) * 2.0 + (1.0 - np.clip(data, 0.0, 1.0)), kind="stable")
+    rows, cols, data = rows[order], cols[order], data[order]
+    first = np.searchsorted(rows, rows, side="left")
+    keep = (np.arange(len(rows)) - first) < k
+    return rows[keep].astype(np.int64), cols[keep].astype(np.int64), data[keep]
 
 
 def best_k(rows: np.ndarray, cols: np.ndarray, data: np.ndarray, k: int):
@@ -311,7 +327,7 @@ def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_m
     register_chars = part.char_matrix_
     groups = [(np.arange(len(new)), None)]
     if rule.within:
-        new_region, register_region = _codes(_keys(new, [rule.within]), _keys(part.prepared_, [rule.within]))
+        new_region, register_region = _codes(_keys(new, [rule.within]), _register_keys(part, [rule.within]))
         groups = [(np.flatnonzero(new_region < 0), None)] + _regions(new_region, register_region)
     out_i, out_j, out_s = [], [], []
     for rows, members in groups:
@@ -388,7 +404,7 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
     state, skipped = {}, {}
     for rule in rules:
         if isinstance(rule, KeyRule):
-            rows, hashes = _key_hashes(rule, new)
+            rows, hashes = _key_hashes(_keys(new, rule.columns))
             too_large = np.zeros(len(new), dtype=bool)
             too_large[rows] = _oversized(index, rule, hashes, rule.max_block or max_block)
             state[rule.name], skipped[rule.name] = too_large, int(too_large.sum())

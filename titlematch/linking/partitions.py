@@ -126,6 +126,15 @@ class PartitionStore:
             self._cache.popitem(last=False)
         return part
 
+    def preload(self, ks) -> bool:
+        """Read partitions ``ks`` now if together they fit the cache (so forked workers share them)."""
+        ks = [int(k) for k in ks]
+        if sum(self.entries[k]["rows"] for k in ks) > self.cache_rows:
+            return False
+        for k in ks:
+            self.get(k)
+        return True
+
     def __getstate__(self) -> dict:
         # Sent to a Dask worker: the worker reads the partitions itself, from the same directory.
         state = dict(self.__dict__)

@@ -428,6 +428,10 @@ class RegisterIndex:
         """Partition ``k`` (read from disk and checked on first use when the index was loaded)."""
         return self._store.get(k) if self._store is not None else self._parts[k]
 
+    def preload(self, partitions) -> bool:
+        """Read these partitions now if they fit the cache together; True if they are all in memory."""
+        return self._store.preload(partitions) if self._store is not None else True
+
     def partitions_of_regions(self, regions: pd.Series) -> np.ndarray:
         """The partitions holding the register's records of these region keys (see ``region_keys``)."""
         regions = regions[regions.fillna("") != ""]

@@ -19,7 +19,7 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..runtime.pool import map_slices, resolve_workers, slices
-from .blocking import KeyRule, TokenRule, block_sizes, candidate_pairs
+from .blocking import KeyRule, TokenRule, block_sizes, candidate_pairs, needed_partitions
 from .comparison import compare
 from .register import RegisterIndex
 
@@ -41,6 +41,9 @@ def pairs_and_features(new: pd.DataFrame, index: RegisterIndex, rules: Sequence,
     for rule in rules:  # counted once here, before the fork, instead of once in every worker
         if isinstance(rule, (KeyRule, TokenRule)):
             block_sizes(index, rule)
+    # Partitions read here are shared by the forked workers; an index too large for the cache is
+    # read by each worker, a partition at a time.
+    index.preload(needed_partitions(new, index, rules))
 
     def one(rows: slice):
         records = new.iloc[rows].reset_index(drop=True)
