@@ -10,3 +10,21 @@ def review_files(tmp_path_factory):
     from _review_data import build
 
     return build(tmp_path_factory.mktemp("review"))
+
+
+@pytest.fixture(scope="session")
+def small_demo(tmp_path_factory):
+    """The demo scenario's data, dictionary and confidence model (``demo --small`` sizes), built once
+    per session through the command line: ``{"data": dir, "dictionary": dir, "model": dir}``."""
+    from titlematch.cli import main
+    from titlematch.datasets.scenario import write_scenario
+
+    out = tmp_path_factory.mktemp("small_demo")
+    data = out / "data"
+    write_scenario(data, small=True)
+    past = [str(data / f"past_{y}.csv") for y in (2022, 2023, 2024)]
+    assert main(["dictionary", *past, "--classification", str(data / "classification.csv"),
+                 "--out", str(out / "dictionary"), "--quiet"]) == 0
+    assert main(["calibrate", "--dictionary", str(out / "dictionary"), "--gold", str(data / "gold_2025.csv"),
+                 "--min-accuracy", "0.98", "--out", str(out / "model"), "--quiet"]) == 0
+    return {"data": data, "dictionary": out / "dictionary", "model": out / "model"}

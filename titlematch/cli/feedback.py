@@ -17,6 +17,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--dictionary", required=True, metavar="DIR")
     p.add_argument("--out", required=True, metavar="DIR2", help="the updated dictionary")
     p.add_argument("--year", type=int, help="year the decisions belong to (default: the dictionary's newest + 1)")
+    p.add_argument("--issued", metavar="FILE",
+                   help="the queue as issued (default QUEUE.issued.csv beside the queue, written by 'titlematch "
+                        "queue'); every decided row is checked against it")
     return p
 
 
@@ -24,9 +27,10 @@ def run(args) -> int:
     from pathlib import Path
 
     from ..coding.coder import TitleCoder
-    from ..io import Rejects, read_table
+    from ..io import Rejects
     from ..runtime.progress import Summary
-    from ..review.queue import apply_feedback, read_decisions
+    from ..review.feedback import read_returned_queue
+    from ..review.queue import apply_feedback
 
     summary = Summary("feedback", args.quiet)
     coder = TitleCoder.load(args.dictionary)
@@ -34,16 +38,20 @@ def run(args) -> int:
     if _is_journal(args.queue):
         from ..review.agreement import journal_decisions
         from ..review.decisions import read_journal
+        from ..review.feedback import bounded_records
 
         dictionary = coder.dictionary_
         known = set(dictionary.catalogue["code"]) or set(dictionary.entries["code"])
         decisions = journal_decisions(read_journal(args.queue), known, dictionary.code_pattern,
                                       source=str(args.queue), rejects=rejects)
+        decisions = bounded_records(decisions, str(args.queue), rejects)
         queue = decisions
     else:
-        queue = read_table(args.queue, rejects=rejects)
-        decisions = read_decisions(queue, coder.dictionary_, source=str(args.queue), rejects=rejects)
+        queue, decisions = read_returned_queue(args.queue, args.issued, coder.dictionary_, rejects)
     year = args.year if args.year is not None else coder.dictionary_.reference_year + 1
+    if not 1900 <= year <= 2200:
+        from ..io import InputError
+        raise InputError(f"--year {year}: expected a calendar year from 1900 to 2200")
     updated = apply_feedback(coder.dictionary_, decisions, year=year)
     updated.rejects = rejects  # this version's rejects: the queue rows refused
     TitleCoder.from_dictionary(updated, **{k: v for k, v in coder.get_params().items()

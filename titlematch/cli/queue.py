@@ -24,6 +24,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 def run(args) -> int:
     from ..io import read_table, write_table
     from ..runtime.progress import Summary
+    from ..review.feedback import issued_path_for, issued_table
     from ..review.queue import escape_frame, referral_queue
 
     summary = Summary("queue", args.quiet)
@@ -36,6 +37,8 @@ def run(args) -> int:
     queue = referral_queue(coded, titles, title_col=args.title_col, referred_only=not args.all,
                            group_of=group_of, by_group=args.by_group)
     write_table(escape_frame(queue), args.out)
+    # what 'titlematch feedback' checks the returned queue against
+    write_table(issued_table(queue), issued_path_for(args.out))
     summary.set(rows_in=len(coded), queued_titles=len(queue), records_covered=int(queue["records"].sum()))
     summary.print()
     print(f"referral queue: {args.out}")

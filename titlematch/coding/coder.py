@@ -21,6 +21,7 @@ from ..io.columns import add_outputs
 from .candidates import TitleIndex
 from .dictionary import ARTEFACT_KIND, TitleDictionary
 from .features import FEATURES, ContextTables, candidate_features, parent_groups
+from .gate import FLAG_COLUMN, LATIN, residual_codes, title_flags
 from ..normalize.title import normalize_titles
 
 
@@ -113,6 +114,11 @@ class TitleCoder(BaseEstimator):
         self.context_ = ContextTables(self.dictionary_.contexts, self.index_)
         self.official_ = set(zip(self.dictionary_.official["key"], self.dictionary_.official["code"]))
         self.code_titles_ = self.dictionary_.code_titles()
+        corrector = self.index_.corrector_
+        self.known_words_ = (frozenset(self.dictionary_.vocabulary.index) | frozenset(corrector.vocabulary_)
+                             | corrector.protected_)
+        self.known_scripts_ = sorted({LATIN}.union(*(p.get("scripts", ()) for p in self.dictionary_.provenance)))
+        self.residual_codes_ = residual_codes(self.dictionary_.catalogue)
 
     # ---------------------------------------------------------------- persistence
     def save(self, directory: str | os.PathLike) -> Path:
@@ -212,9 +218,25 @@ class TitleCoder(BaseEstimator):
         top = top.join(parent_groups(cands, top["code"], self.index_, with_confidence=confidence is not None))
         for col in top.columns:
             out[col] = top[col].to_numpy()[unit_of_row]
+        flags = self._flags(frame[self.title_col], units["key"].to_numpy(dtype=object)[unit_of_row],
+                            units["corrected"].to_numpy(dtype=object)[unit_of_row])
+        if self.residual_codes_:
+            _offer_residual(out, flags, self.residual_codes_[0], self.code_titles_, confidence is not None)
         if confidence is not None:
-            out["decision"] = confidence.route(out["confidence"].to_numpy())
+            # the router refers flagged titles whatever their confidence
+            out["decision"] = confidence.route(out["confidence"].to_numpy(), flags=flags)
+        out[FLAG_COLUMN] = flags
         return out
+
+    def _flags(self, titles: pd.Series, keys: np.ndarray, corrected: np.ndarray) -> np.ndarray:
+        """The gate's flag per record (:mod:`titlematch.coding.gate`), computed once per distinct title."""
+        text = titles.fillna("").astype(str).to_numpy(dtype=object)
+        distinct = pd.DataFrame({"t": text, "k": keys, "c": corrected}).drop_duplicates()
+        found = title_flags(distinct["t"], distinct["k"], distinct["c"], known_words=self.known_words_,
+                            known_scripts=self.known_scripts_)
+        lookup = pd.MultiIndex.from_frame(distinct)
+        at = lookup.get_indexer(pd.MultiIndex.from_arrays([text, keys, corrected]))
+        return found[at] if len(text) else np.array([], dtype=object)
 
     def predict(self, X) -> np.ndarray:
         units, unit_of_row, normalized = self._units(self._as_frame(X))
@@ -258,6 +280,22 @@ def best_first(cands: pd.DataFrame, group: str, by: str) -> pd.DataFrame:
     a model), then score, highest first, ties to the lower code; ``pos`` numbers them from 0 (the top)."""
     ranked = cands.sort_values([group, by, "score", "code"], ascending=[True, False, False, True])
     return ranked.assign(pos=ranked.groupby(group).cumcount())
+
+
+def _offer_residual(out: pd.DataFrame, flags: np.ndarray, code: str, titles: dict, with_confidence: bool) -> None:
+    """Put the classification's code for insufficient information first among the candidates of
+    non-answers (the others move down one place); it carries no score, so the record is referred."""
+    answers = np.fromiter((f.split(":", 1)[0] in ("non-answer", "vague", "not-working") for f in flags),
+                          dtype=bool, count=len(flags)) & (out["code"].astype(str).to_numpy() != code)
+    if not answers.any():
+        return
+    names = ["score"] + (["confidence"] if with_confidence else [])
+    for name in ["code"] + names:
+        out.loc[answers, f"{name}_3"] = out.loc[answers, f"{name}_2"].to_numpy()
+        out.loc[answers, f"{name}_2"] = out.loc[answers, name].to_numpy()
+    out.loc[answers, "code"] = code
+    out.loc[answers, "code_title"] = titles.get(code, "")
+    out.loc[answers, names] = np.nan
 
 
 def _top_three(cands: pd.DataFrame, n_units: int, titles: dict, with_confidence: bool) -> pd.DataFrame:

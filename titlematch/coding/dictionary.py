@@ -26,6 +26,7 @@ from unidecode import unidecode
 from ..io.artefact import load_artefact, save_artefact
 from .classification import COLUMNS as CLASSIFICATION_COLUMNS, Classification
 from .codes import to_soc_2018
+from .gate import scripts_of_titles
 from ..io import ROW_COLUMN, InputError, Rejects, file_sha256, read_table, require_columns
 from ..normalize.title import normalize_titles
 
@@ -225,6 +226,7 @@ class TitleDictionary:
         years = sorted(int(y) for y in kept["year"].unique() if y != UNDATED)
         self.provenance.append({"file": str(file), "source": source, "years": years, "rows_in": rows_in,
                                 "kept": int(keep.sum()), "rejected": rejected,
+                                "scripts": scripts_of_titles(title[keep]),
                                 "checksum": frame.attrs.get("checksum", "")})
         self._derived.clear()
 

@@ -242,9 +242,10 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     first = cands.groupby("unit")["score"].transform("first")
     cands["score_gap"] = np.where(cands["rank"] == 1, cands["score"] - nxt, cands["score"] - first)
 
-    # string similarities of the title and the best key behind each code
+    # string similarities of the title as written (before spelling correction) and the best key
+    # behind each code: a correction makes a title look exact, so these say how far it really was
     key_text = np.where(cands["key"].to_numpy() >= 0, index.keys_[np.maximum(cands["key"].to_numpy(), 0)], "")
-    title_text = qtext[cands["query"].to_numpy()]
+    title_text = originals[cands["query"].to_numpy()]
     for name, scorer in (("ratio", fuzz.ratio), ("token_set_ratio", fuzz.token_set_ratio),
                          ("partial_ratio", fuzz.partial_ratio)):
         cands[name] = process.cpdist(title_text, key_text, scorer=scorer, workers=-1) / 100.0
@@ -259,7 +260,7 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands["official"] = [float((k, c) in official) for k, c in zip(key_text, code_strings)]
     for col in ("n_changes", "spelling_changed", "n_roles"):
         cands[col] = units[col].to_numpy(dtype=float)[cands["unit"].to_numpy()]
-    cands["n_tokens"] = [len(t.split()) for t in title_text]
+    cands["n_tokens"] = [len(t.split()) for t in qtext[cands["query"].to_numpy()]]
     cands["code"] = code_strings
     cands["key"] = key_text
     return cands[["unit", "code", "key"] + FEATURES]

@@ -337,9 +337,10 @@ class ConfidenceModel(BaseEstimator):
         out["confidence"] = consistent(p, group.to_numpy())
         return out
 
-    def route(self, confidence: np.ndarray) -> np.ndarray:
-        """Accept at ``threshold_`` or above, else refer (``titlematch.confidence.routing.route``)."""
-        return route(confidence, self.threshold_)
+    def route(self, confidence: np.ndarray, *, flags=None) -> np.ndarray:
+        """Accept at ``threshold_`` or above, else refer; flagged records are referred
+        (``titlematch.confidence.routing.route``)."""
+        return route(confidence, self.threshold_, flags=flags)
 
     def save(self, directory: str | os.PathLike, *, report: dict | None = None,
              tables: dict[str, pd.DataFrame] | None = None) -> Path:

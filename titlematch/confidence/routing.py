@@ -120,26 +120,48 @@ def _gold_inputs(confidence, machine_code, expert_code, manual_code):
     return conf, machine, expert, manual
 
 
-def route(confidence, threshold: float, refer_threshold: float | None = None) -> np.ndarray:
+def check_threshold(threshold, name: str = "threshold") -> float:
+    """``threshold`` as a float in [0, 1]; anything else (nan, inf, -1, text) is a ValueError."""
+    try:
+        value = float(threshold)
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} must be a number from 0 to 1, got {threshold!r}") from None
+    if not 0.0 <= value <= 1.0:  # also false for nan
+        raise ValueError(f"{name} must be a number from 0 to 1, got {threshold!r}")
+    return value
+
+
+def route(confidence, threshold: float, refer_threshold: float | None = None, *, flags=None) -> np.ndarray:
     """The one accept / refer rule of the coder, the calibration, the evaluation and the linker.
 
     ``"accept"`` where confidence >= ``threshold`` (exactly), else ``"refer"``; a missing confidence is
     referred. With ``refer_threshold`` (the linker's lower bound) a confidence below it is ``"no-match"``.
+    A record with a non-empty flag (``flags``, aligned: the gate of :mod:`titlematch.coding.gate`
+    marks titles that name no occupation) is never accepted, whatever its confidence. Thresholds
+    are numbers from 0 to 1 (``threshold`` may also be ``ACCEPT_NOTHING``, just above 1).
 
     >>> route([0.5, 0.9, float("nan")], 0.9).tolist()
     ['refer', 'accept', 'refer']
     >>> route([0.2, 0.5, 0.95], 0.9, refer_threshold=0.5).tolist()
     ['no-match', 'refer', 'accept']
+    >>> route([0.99, 0.99], 0.9, flags=["", "non-answer: 'refused'"]).tolist()
+    ['accept', 'refer']
     """
-    if threshold is None or np.isnan(float(threshold)):
-        raise ValueError(f"threshold must be a number, got {threshold!r}")
+    if threshold != ACCEPT_NOTHING:
+        threshold = check_threshold(threshold)
     conf = _confidences(confidence)
     with np.errstate(invalid="ignore"):
-        decision = np.where(conf >= float(threshold), "accept", "refer").astype(object)
+        decision = np.where(np.nan_to_num(conf, nan=-1.0) >= float(threshold), "accept", "refer").astype(object)
         if refer_threshold is not None:
-            if not float(refer_threshold) <= float(threshold):
+            refer_threshold = check_threshold(refer_threshold, "refer_threshold")
+            if not refer_threshold <= float(threshold):
                 raise ValueError(f"refer_threshold ({refer_threshold}) must not exceed threshold ({threshold})")
-            decision[~(conf >= float(refer_threshold))] = "no-match"
+            decision[~(conf >= refer_threshold)] = "no-match"
+    if flags is not None:
+        flagged = np.array([bool(f) and f == f for f in flags], dtype=bool)  # f == f: NaN is no flag
+        if len(flagged) != len(decision):
+            raise ValueError(f"flags has {len(flagged)} values for {len(decision)} confidences")
+        decision[flagged & (decision == "accept")] = "refer"
     return decision
 
 

@@ -5,7 +5,9 @@ characters from its first seven letters (Wolf Garbe's symmetric-delete idea, wit
 trick to keep the index small). A misspelled word generates its own deletes; words sharing one
 are candidates, and the true Damerau–Levenshtein distance (rapidfuzz) decides. The corrector
 prefers the smallest distance, then the more frequent word, and abstains when two candidates
-are about equally likely: a wrong "correction" costs more than a missed one.
+are about equally likely: a wrong "correction" costs more than a missed one. The distance a
+correction may span grows with the word (:meth:`SpellingCorrector.allowed_distance`): no
+two-edit corrections of short words, which would turn random letters into real words.
 
 Known words, lexicon keys (abbreviations such as "mgr", Spanish titles, qualifier words),
 numbers and words shorter than ``min_length`` are never changed.
@@ -27,6 +29,8 @@ from .title_lexicon import title_lexicon
 ARTEFACT_KIND = "spelling_corrector"
 PREFIX_LENGTH = 7  # deletes are taken from this many leading letters only
 AMBIGUITY_RATIO = 3.0  # the best candidate must be this many times as frequent as the runner-up
+SHORT_WORD = 4  # words shorter than this are never corrected
+LONG_WORD = 8   # words this long may be corrected by two edits; shorter ones by one
 
 
 def _deletes(word: str, distance: int) -> set[str]:
@@ -200,11 +204,20 @@ class SpellingCorrector:
         ids = np.unique(np.concatenate(hits))
         return [w for w in self.targets_[ids] if abs(len(w) - len(word)) <= self.max_distance]
 
+    def allowed_distance(self, length: int) -> int:
+        """Edits a correction of a word of ``length`` letters may span: the evidence must grow
+        with the word. Two edits turn most four-letter strings into some word ("hbsz" -> "host"),
+        so: none up to 3 letters, one from 4 to 7, two from 8 (never more than ``max_distance``)."""
+        limit = 0 if length < SHORT_WORD else 1 if length < LONG_WORD else 2
+        return min(limit, self.max_distance)
+
     def _lookup(self, word: str) -> str:
-        best, scored = self.max_distance + 1, []
+        limit = self.allowed_distance(len(word))
+        best, scored = limit + 1, []
         for candidate in self._candidate_words(word):
-            distance = DamerauLevenshtein.distance(word, candidate, score_cutoff=self.max_distance)
-            if distance <= self.max_distance:
+            distance = DamerauLevenshtein.distance(word, candidate, score_cutoff=limit)
+            # frequency evidence: a word seen once is the target of a one-edit correction at most
+            if distance <= limit and self.vocabulary_[candidate] >= distance:
                 scored.append((distance, -self.vocabulary_[candidate], candidate))
                 best = min(best, distance)
         top = sorted(s for s in scored if s[0] == best)

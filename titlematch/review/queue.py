@@ -3,20 +3,19 @@
 A referral queue has one row per distinct normalized title among the referred records,
 with how many records it covers, the top three candidate codes with their official titles
 and confidences, and empty columns for the coder's code and remark. Coders' decisions come
-back through ``apply_feedback``, which validates them and adds them to the dictionary as a
-new, provenance-stamped version. ``disagreements`` lists records whose manual code the model
+back through :mod:`titlematch.review.feedback`, which checks them against the queue as issued,
+and ``apply_feedback`` adds them to the dictionary as a new, provenance-stamped version. ``disagreements`` lists records whose manual code the model
 contradicts with high confidence: the review-first mode before an office trusts automation.
 """
 from __future__ import annotations
 
-import re
 
 import numpy as np
 import pandas as pd
 
 from ..coding.classification import implicit_top
 from ..coding.dictionary import TitleDictionary
-from ..io import ROW_COLUMN, Rejects, require_columns
+from ..io import require_columns
 from ..confidence.routing import read_confidence
 from ..io.columns import add_outputs
 
@@ -101,47 +100,6 @@ def referral_queue(coded: pd.DataFrame, code_titles: dict | None = None, *, titl
     out["coder_code"] = ""
     out["coder_remark"] = ""
     return out[QUEUE_COLUMNS]
-
-
-def read_decisions(queue: pd.DataFrame, dictionary: TitleDictionary, *, source: str = "queue",
-                   rejects: Rejects | None = None) -> pd.DataFrame:
-    """Validated coders' decisions: ``title_normalized, context, code, records`` for rows with a
-    ``coder_code``; invalid codes and malformed rows go to ``rejects`` with the reason."""
-    rejects = rejects if rejects is not None else Rejects()
-    queue = queue.copy()
-    queue.columns = [unescape_formula(str(c)) for c in queue.columns]
-    require_columns(queue, ("title_normalized", "records", "coder_code"), source)
-    if ROW_COLUMN not in queue.columns:
-        queue[ROW_COLUMN] = np.arange(2, len(queue) + 2)
-    for col in queue.columns:
-        if queue[col].dtype == object:
-            queue[col] = queue[col].map(unescape_formula)
-    decided = queue[queue["coder_code"].fillna("").astype(str).str.strip() != ""].copy()
-    decided["coder_code"] = decided["coder_code"].astype(str).str.strip()
-    known = set(dictionary.catalogue["code"]) or set(dictionary.entries["code"])
-    pattern = re.compile(dictionary.code_pattern) if dictionary.code_pattern else None
-    records = pd.to_numeric(decided["records"], errors="coerce")
-    ok = pd.Series(True, index=decided.index)
-    for idx, row in decided.iterrows():
-        code, n = row["coder_code"], records[idx]
-        reason = None
-        if pattern is not None and not pattern.match(code):
-            reason = f"code {code!r} does not match {dictionary.code_pattern}"
-        elif known and code not in known:
-            reason = f"code {code!r} is not in the dictionary's catalogue"
-        elif not (n >= 1 and float(n).is_integer()):
-            reason = f"records must be a whole number >= 1, got {row['records']!r}"
-        elif not str(row["title_normalized"]).strip():
-            reason = "empty title_normalized"
-        if reason:
-            rejects.add(source, int(row[ROW_COLUMN]), "coder_code", reason, code)
-            ok[idx] = False
-    decided = decided[ok]
-    context = decided["context"].fillna("").astype(str).str.split("; ").str[0] if "context" in decided else ""
-    return pd.DataFrame({"title_normalized": decided["title_normalized"].astype(str).to_numpy(),
-                         "context": np.asarray(context, dtype=object) if len(decided) else [],
-                         "code": decided["coder_code"].to_numpy(),
-                         "records": records[ok].astype(int).to_numpy()})
 
 
 def apply_feedback(dictionary: TitleDictionary, decisions: pd.DataFrame, *, year: int | None = None,
