@@ -66,13 +66,14 @@ def test_calibrate_cli_writes_model_report_and_plots(tmp_path, scenario):
     # reported measures agree with the reference definitions on the saved reliability table
     rel = pd.read_csv(model_dir / "reliability.csv")
     assert rel["count"].sum() == len(scenario["gold"])
-    # coding with the model: the decision column honours the threshold exactly
+    # coding with the model: the decision column honours the threshold exactly (and the gate:
+    # titles flagged as naming no occupation are referred whatever their confidence)
     scenario["new"].to_csv(tmp_path / "new.csv", index=False)
     assert main(["code", str(tmp_path / "new.csv"), "--dictionary", str(tmp_path / "dict"), "--model",
                  str(model_dir), "--out", str(tmp_path / "coded.csv"), "--quiet"]) == 0
     coded = pd.read_csv(tmp_path / "coded.csv", keep_default_na=False)
     conf = pd.to_numeric(coded["confidence"], errors="coerce")
-    assert ((conf >= model.threshold_) == (coded["decision"] == "accept")).all()
+    assert (((conf >= model.threshold_) & (coded["title_flag"] == "")) == (coded["decision"] == "accept")).all()
     assert {"confidence_2", "confidence_3"} <= set(coded.columns)
 
 

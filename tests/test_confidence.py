@@ -107,10 +107,12 @@ def test_saved_arrays_refuse_pickled_objects(tmp_path):
     # a crafted array holding Python objects cannot be loaded: np.load(allow_pickle=False) refuses it
     import hashlib
     import json
+    from titlematch.io.artefact import manifest_checksum
     path = tmp_path / "m" / "base_coef.npy"
     np.save(path, np.array([{"x": 1}], dtype=object), allow_pickle=True)
     manifest = json.loads((tmp_path / "m" / "manifest.json").read_text())
     manifest["files"]["base_coef.npy"]["sha256"] = hashlib.sha256(path.read_bytes()).hexdigest()
+    manifest["checksum"] = manifest_checksum(manifest)  # re-signed in full: only np.load can refuse it
     (tmp_path / "m" / "manifest.json").write_text(json.dumps(manifest))
     with pytest.raises(ValueError, match="pickle"):
         ConfidenceModel.load(tmp_path / "m")

@@ -16,6 +16,11 @@ import sys
 
 from .. import __version__
 
+log = logging.getLogger("titlematch")
+OUTPUT_OPTIONS = ("out", "features", "run_dir")  # what a command writes; every other existing path is read
+_NOT_PATHS = ("command", "encoding", "engine", "scheduler", "kind", "fields", "register_fields", "record_id")
+MAX_MESSAGE = 600  # characters of an error message shown; a message is one line
+
 
 def _commands():
     modules = []
@@ -28,8 +33,15 @@ def _commands():
     return sorted(modules, key=lambda m: (getattr(m, "ORDER", 100), m.__name__))
 
 
+class _Parser(argparse.ArgumentParser):
+    """Option errors as one line naming the option, not the whole usage text."""
+
+    def error(self, message: str):
+        self.exit(2, f"{self.prog}: error: {message} (see '{self.prog} --help')\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="titlematch",
         description="Code job titles to occupations and link establishments to a business register.")
     parser.add_argument("--version", action="version", version=f"titlematch {__version__}")
@@ -53,11 +65,58 @@ def main(argv: list[str] | None = None) -> int:
     # Imported only now: --help and --version have exited already, and every command loads these anyway.
     from ..io import InputError
     from ..io.artefact import ArtefactError
+
     try:
+        _refuse_overwrites(args)
         return int(args._run(args) or 0)
     except (InputError, ArtefactError) as exc:
-        print(f"titlematch {args.command}: error: {exc}", file=sys.stderr)
-        return 2
+        return _fail(args, str(exc))
+    except OSError as exc:  # unwritable or vanished paths, a full disk: name the file
+        where = f"{exc.filename}: " if exc.filename else ""
+        return _fail(args, f"{where}{exc.strerror or exc}")
+    except MemoryError:
+        return _fail(args, "out of memory; try a smaller --chunk-rows where the command has it")
+    except KeyboardInterrupt:
+        print(f"titlematch {args.command}: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a user never sees a traceback; --verbose logs it for a bug report
+        log.debug("traceback", exc_info=True)
+        if args.verbose:
+            import traceback
+            traceback.print_exc()
+        return _fail(args, f"unexpected {type(exc).__name__}: {exc} (a bug: please report it with the "
+                           "command and --verbose output)", status=1)
+
+
+def _fail(args, message: str, status: int = 2) -> int:
+    """Print ``message`` as one line, naming the command (long messages are cut)."""
+    text = " ".join(str(message).split())
+    if len(text) > MAX_MESSAGE:
+        text = text[:MAX_MESSAGE - 3] + "..."
+    print(f"titlematch {args.command}: error: {text}", file=sys.stderr)
+    return status
+
+
+def _refuse_overwrites(args) -> None:
+    """The one check for every command: nothing it writes may be a file it reads."""
+    import os
+
+    from ..io import refuse_overwrite, rejects_path_for
+
+    inputs = []
+    for name, value in vars(args).items():
+        if name.startswith("_") or name in OUTPUT_OPTIONS or name in _NOT_PATHS or name.endswith("_col"):
+            continue
+        for item in value if isinstance(value, list) else [value]:
+            if isinstance(item, str) and item and os.path.exists(item):
+                inputs.append(item)
+    for name in OUTPUT_OPTIONS:
+        value = getattr(args, name, None)
+        if isinstance(value, str) and value:
+            option = "--" + name.replace("_", "-")
+            refuse_overwrite(value, inputs, option)
+            if name == "out" and os.path.splitext(value)[1]:
+                refuse_overwrite(rejects_path_for(value), inputs, "the rejects file of " + option)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -40,3 +40,14 @@ def _positive(text: str) -> int:
     if value < 1:
         raise argparse.ArgumentTypeError(f"expected a positive whole number, got {text!r}")
     return value
+
+
+def probability(text: str) -> float:
+    """An argparse type: a number from 0 to 1 (``nan``, ``inf`` and negatives are refused)."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not 0.0 <= value <= 1.0:  # false for nan too
+        raise argparse.ArgumentTypeError(f"expected a number from 0 to 1, got {text!r}")
+    return value

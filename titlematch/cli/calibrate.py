@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import argparse
 
+from ._run import probability
+
 ORDER = 40
 
 
@@ -13,7 +15,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                                           "machine plus human coding on the gold sample.")
     p.add_argument("--dictionary", required=True, metavar="DIR")
     p.add_argument("--gold", metavar="FILE", help="gold sample: title [, context], code (expert) [, manual_code]")
-    p.add_argument("--min-accuracy", type=float, metavar="A",
+    p.add_argument("--min-accuracy", type=probability, metavar="A",
                    help="accept the most records whose accepted accuracy stays >= A (bootstrap lower bound)")
     p.add_argument("--out", required=True, metavar="MODEL_DIR")
     p.add_argument("--bootstrap", type=int, default=500, help="bootstrap resamples (default 500)")

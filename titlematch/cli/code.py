@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import argparse
 
-from ._run import add_run_arguments, run_arguments
+from ._run import add_run_arguments, run_arguments, probability
 
 ORDER = 30
 
@@ -30,7 +30,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--features", metavar="FILE",
                    help="also write every candidate's features here (CSV or Parquet), from the same streamed "
                         "pass: one row per (input row, candidate), with the input's row number in 'row'")
-    p.add_argument("--threshold", type=float, help="override the model's acceptance threshold")
+    p.add_argument("--threshold", type=probability, help="override the model's acceptance threshold")
     add_run_arguments(p)
     return p
 

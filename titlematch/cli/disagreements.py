@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import argparse
 
+from ._run import probability
+
 ORDER = 64
 
 
@@ -16,7 +18,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--model", required=True, metavar="MODEL")
     p.add_argument("--manual-col", required=True, metavar="COL")
     p.add_argument("--out", required=True, metavar="FILE")
-    p.add_argument("--min-confidence", type=float, default=0.9, help="list disagreements at or above (default 0.9)")
+    p.add_argument("--min-confidence", type=probability, default=0.9, help="list disagreements at or above (default 0.9)")
     p.add_argument("--title-col", default="title")
     p.add_argument("--context-col", default="context")
     p.add_argument("--output-prefix", default="", metavar="PREFIX",

@@ -2,6 +2,8 @@
 from __future__ import annotations
 
 import argparse
+
+from ._run import probability
 from pathlib import Path
 
 ORDER = 70
@@ -18,7 +20,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--out", required=True, metavar="REPORT_DIR", help="directory for the report")
     parser.add_argument("--dictionary", metavar="DIR", default=None,
                         help="title dictionary to measure unseen tokens and titles against (default: the old file)")
-    parser.add_argument("--threshold", type=float, default=None, metavar="T",
+    parser.add_argument("--threshold", type=probability, default=None, metavar="T",
                         help="acceptance threshold for the expected automation share (default: the 'decision' "
                              "column, when both files have it)")
     parser.add_argument("--psi-limit", type=float, default=0.2, metavar="X",

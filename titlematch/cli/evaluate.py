@@ -2,6 +2,8 @@
 from __future__ import annotations
 
 import argparse
+
+from ._run import probability
 from pathlib import Path
 
 from ..coding.levels import SOC_LEVELS
@@ -18,7 +20,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("coded", metavar="CODED_FILE", help="output of 'titlematch code' (CSV, Parquet or .xlsx)")
     parser.add_argument("--gold", required=True, metavar="FILE", help="gold sample with the expert's 'code'")
     parser.add_argument("--out", required=True, metavar="REPORT_DIR", help="directory for the report")
-    parser.add_argument("--min-accuracy", type=float, default=None, metavar="A",
+    parser.add_argument("--min-accuracy", type=probability, default=None, metavar="A",
                         help="choose the most automation whose accepted records are right at rate A or better "
                              "(default: no worse than coders alone when the gold sample has 'manual_code', "
                              "else A = 0.97)")

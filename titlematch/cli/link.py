@@ -6,7 +6,7 @@ import logging
 from dataclasses import replace
 from pathlib import Path
 
-from ._run import add_run_arguments, run_arguments
+from ._run import add_run_arguments, run_arguments, probability
 
 # The library is imported inside the functions below: building the command line's parser imports
 # this module, and must not load pandas or scikit-learn (see titlematch.cli).
@@ -58,8 +58,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--training", help="labelled records: record id (or the fields) and register id; "
                                            "gives a supervised model")
     parser.add_argument("--dedupe", action="store_true", help="find duplicates within FILE instead of linking")
-    parser.add_argument("--threshold", type=float, default=0.9, help="accept at this confidence (default 0.9)")
-    parser.add_argument("--refer-threshold", type=float, default=0.5,
+    parser.add_argument("--threshold", type=probability, default=0.9, help="accept at this confidence (default 0.9)")
+    parser.add_argument("--refer-threshold", type=probability, default=0.5,
                         help="refer to a person at this confidence (default 0.5); below: no-match")
     parser.add_argument("--one-to-one", action="store_true",
                         help="a register entry takes at most one record of the file")
@@ -150,6 +150,9 @@ def run(args) -> int:
     rejects = Rejects()
     if args.dedupe:  # duplicates can be anywhere in the file: it is read whole
         records = read_table(args.file, encoding=args.encoding, rejects=rejects)
+        if not len(records):
+            raise InputError(f"{args.file}: no records to search for duplicates (the file has a header only"
+                             f"{' or every row was refused' if len(rejects) else ''})")
         result = linker.dedupe(records, rejects=rejects, source=args.file)
         write_table(result, args.out)
         prefix = args.output_prefix
@@ -164,7 +167,10 @@ def run(args) -> int:
         raise InputError("link: give --register FILE_OR_INDEX (or --dedupe to search FILE itself)")
     index = load_register(args, fields, rejects)
     training = read_table(args.training, encoding=args.encoding, rejects=rejects) if args.training else None
-    sample = next(TableReader(args.file, chunk_rows=linker.em_records, encoding=args.encoding).chunks()).frame
+    sample = next((c.frame for c in TableReader(args.file, chunk_rows=linker.em_records,
+                                                 encoding=args.encoding).chunks() if len(c.frame)), None)
+    if sample is None:
+        raise InputError(f"{args.file}: no records to link (the file has a header only, or every row is refused)")
     # Without training, m and u are estimated by EM once, on the file's first records, and then kept:
     # every chunk (and every Dask worker) is scored with the same weights.
     linker.fit(index, training, records=sample, records_source=str(args.file))

@@ -33,6 +33,9 @@ def run(args) -> int:
     summary = Summary("register", args.quiet)
     rejects = Rejects()
     frame = read_table(args.file, required=[args.id_col], encoding=args.encoding, rejects=rejects)
+    if not len(frame):
+        raise InputError(f"{args.file}: no register rows to index (the file has a header only"
+                         f"{' or every row was refused' if len(rejects) else ''})")
     if args.partition_rows is not None and args.partition_rows < 1:
         raise InputError(f"--partition-rows: expected a positive number, got {args.partition_rows}")
     index = RegisterIndex(_fields(args), args.id_col, workers=args.workers).fit(frame, source=args.file)

@@ -28,10 +28,10 @@ from sklearn.model_selection import GroupKFold
 from sklearn.preprocessing import StandardScaler
 from threadpoolctl import threadpool_limits
 
-from ..io.artefact import load_artefact, save_artefact
+from ..io.artefact import ArtefactError, load_artefact, save_artefact
 from ..coding.features import FEATURES
 from .fellegi_sunter import CLIP, FellegiSunterModel
-from .routing import route
+from .routing import ACCEPT_NOTHING, route
 
 ARTEFACT_KIND = "confidence-model"
 ECM_RULES = {  # binarized features for the unsupervised start: name -> (feature, threshold)
@@ -359,7 +359,7 @@ class ConfidenceModel(BaseEstimator):
         art = load_artefact(directory, ARTEFACT_KIND)
         meta = art.meta
         if meta.get("features") != FEATURES:
-            raise ValueError(f"{directory}: the model was trained on other features; re-run titlematch calibrate")
+            raise ArtefactError(f"{directory}: the model was trained on other features; re-run titlematch calibrate")
         params = dict(meta["params"])
         params["models"] = tuple(params["models"])
         self = cls(**params)
@@ -369,6 +369,8 @@ class ConfidenceModel(BaseEstimator):
                                     "y": art.arrays[f"calibration_{part}_y"]}
                              for part, method in meta["calibration"].items()}
         self.threshold_ = float(meta["threshold"])
+        if not (0.0 <= self.threshold_ <= 1.0 or self.threshold_ == ACCEPT_NOTHING):
+            raise ArtefactError(f"{directory}: threshold {meta['threshold']!r} is not a number from 0 to 1")
         self.cv_log_loss_ = meta.get("cv_log_loss", {})
         self.source_ = meta.get("label_source", "")
         self.report_ = meta.get("report", {})

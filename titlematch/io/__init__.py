@@ -9,7 +9,7 @@
 ``lexicon``   the CSV tables shipped in ``lexicons/``
 """
 from .errors import InputError
-from .files import CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, atomic_path, file_sha256
+from .files import CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, atomic_path, file_sha256, refuse_overwrite
 from .encoding import detect_file_encoding
 from .csvparse import MAX_LINE_BYTES
 from .read import MAX_CELL_CHARS, ReadPosition, TableChunk, TableReader, iter_table_chunks, read_table
@@ -17,6 +17,7 @@ from .rejects import REJECT_COLUMNS, ROW_COLUMN, Rejects, rejects_path_for, requ
 from .write import write_table
 
 __all__ = ["InputError", "CSV_SUFFIXES", "EXCEL_SUFFIXES", "PARQUET_SUFFIXES", "atomic_path", "file_sha256",
+           "refuse_overwrite",
            "detect_file_encoding", "MAX_LINE_BYTES", "MAX_CELL_CHARS", "ReadPosition", "TableChunk",
            "TableReader", "iter_table_chunks", "read_table", "REJECT_COLUMNS", "ROW_COLUMN", "Rejects",
            "rejects_path_for", "require_columns", "write_table"]

@@ -2,12 +2,16 @@
 
 An artefact is a directory of Parquet tables and ``.npy`` arrays plus ``manifest.json``
 with the kind, format version, library version, build metadata and a SHA-256 for every
-file. Loading verifies all of it and reads only data (``allow_pickle=False``), so a
-crafted artefact can make loading fail but cannot run code.
+file, and a SHA-256 of the manifest's own content, so that settings kept there (a model's
+threshold, a dictionary's options) cannot be edited unnoticed either. Loading verifies all of
+it, checks each array's shape and table's row count against the manifest, and reads only data
+(``allow_pickle=False``), so a crafted artefact can make loading fail, with a one-line
+``ArtefactError``, but cannot run code.
 """
 from __future__ import annotations
 
 import ctypes
+import hashlib
 import json
 import os
 import shutil
@@ -23,12 +27,32 @@ import pandas as pd
 from .. import __version__
 from . import file_sha256
 
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2  # 2: the manifest carries a checksum of its own content
 MANIFEST = "manifest.json"
 
 
 class ArtefactError(ValueError):
     """A saved artefact is missing, of another kind or version, or was altered since it was saved."""
+
+
+class _Parts(dict):
+    """The tables, arrays or meta of a loaded artefact: asking for one that is not there is an
+    ``ArtefactError`` naming the artefact, not a ``KeyError`` deep inside a loader."""
+
+    def __init__(self, data: dict, what: str, directory: Path) -> None:
+        super().__init__(data)
+        self._what, self._directory = what, directory
+
+    def __missing__(self, key):
+        raise ArtefactError(f"{self._directory}: the manifest lists no {self._what} {key!r}; "
+                            "the artefact is incomplete or was altered")
+
+
+def manifest_checksum(manifest: dict) -> str:
+    """SHA-256 of the manifest's content (every key but ``checksum``) as canonical JSON."""
+    content = {k: v for k, v in manifest.items() if k != "checksum"}
+    text = json.dumps(content, sort_keys=True, separators=(",", ":"), ensure_ascii=True, default=str)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 @dataclass
@@ -68,8 +92,9 @@ def write_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd
         files[target.name] = {"sha256": file_sha256(target), "shape": list(array.shape)}
     manifest = {"kind": kind, "format_version": FORMAT_VERSION, "library_version": __version__,
                 "files": files, "meta": meta or {}}
-    (directory / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True, default=str) + "\n",
-                                      encoding="utf-8")
+    manifest = json.loads(json.dumps(manifest, default=str))  # the checksum covers what is written
+    manifest["checksum"] = manifest_checksum(manifest)
+    (directory / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True) + "\n", encoding="utf-8")
     return manifest
 
 
@@ -120,31 +145,60 @@ def read_manifest(directory: str | os.PathLike) -> dict:
     if not path.is_file():
         raise ArtefactError(f"{path}: no manifest; {directory} is not a titlematch artefact")
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        manifest = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError, RecursionError) as exc:
         raise ArtefactError(f"{path}: manifest is not valid JSON: {exc}") from exc
+    if not isinstance(manifest, dict):
+        raise ArtefactError(f"{path}: manifest is not a JSON object")
+    return manifest
+
+
+def _checked_manifest(directory: Path, kind: str) -> dict:
+    manifest = read_manifest(directory)
+    path = directory / MANIFEST
+    if manifest.get("kind") != kind:
+        raise ArtefactError(f"{directory}: holds a {manifest.get('kind')!r}, expected a {kind!r}")
+    if manifest.get("format_version") != FORMAT_VERSION:
+        raise ArtefactError(f"{directory}: format version {manifest.get('format_version')!r}; "
+                            f"this titlematch reads version {FORMAT_VERSION}: build it again")
+    if manifest.get("checksum") != manifest_checksum(manifest):
+        raise ArtefactError(f"{path}: checksum mismatch; the manifest (its file list or settings) "
+                            "was altered after it was saved")
+    files, meta = manifest.get("files"), manifest.get("meta")
+    if not isinstance(files, dict) or not all(isinstance(v, dict) for v in files.values()):
+        raise ArtefactError(f"{path}: 'files' must map each file name to its checksum")
+    if not isinstance(meta, dict):
+        raise ArtefactError(f"{path}: 'meta' must be a JSON object")
+    return manifest
 
 
 def load_artefact(directory: str | os.PathLike, kind: str) -> Artefact:
     """Load and verify an artefact of ``kind``; raise ``ArtefactError`` naming the offending file."""
     directory = Path(directory)
-    manifest = read_manifest(directory)
-    if manifest.get("kind") != kind:
-        raise ArtefactError(f"{directory}: holds a {manifest.get('kind')!r}, expected a {kind!r}")
-    if manifest.get("format_version") != FORMAT_VERSION:
-        raise ArtefactError(f"{directory}: format version {manifest.get('format_version')!r}; "
-                            f"this titlematch reads version {FORMAT_VERSION}")
+    manifest = _checked_manifest(directory, kind)
     tables, arrays = {}, {}
-    for name, info in manifest.get("files", {}).items():
+    for name, info in manifest["files"].items():
         path = directory / name
         if Path(name).name != name or not path.is_file():
             raise ArtefactError(f"{path}: listed in the manifest but missing")
         if file_sha256(path) != info.get("sha256"):
             raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
-        if name.endswith(".parquet"):
-            tables[name[: -len(".parquet")]] = pd.read_parquet(path)
-        elif name.endswith(".npy"):
-            arrays[name[: -len(".npy")]] = np.load(path, allow_pickle=False)
-        else:
-            raise ArtefactError(f"{path}: unexpected file type in an artefact")
-    return Artefact(kind, tables, arrays, manifest.get("meta", {}), manifest)
+        try:
+            if name.endswith(".parquet"):
+                table = pd.read_parquet(path)
+                if "rows" in info and len(table) != info["rows"]:
+                    raise ArtefactError(f"{path}: {len(table)} rows; the manifest says {info['rows']}")
+                tables[name[: -len(".parquet")]] = table
+            elif name.endswith(".npy"):
+                array = np.load(path, allow_pickle=False)
+                if "shape" in info and list(array.shape) != info["shape"]:
+                    raise ArtefactError(f"{path}: shape {list(array.shape)}; the manifest says {info['shape']}")
+                arrays[name[: -len(".npy")]] = array
+            else:
+                raise ArtefactError(f"{path}: unexpected file type in an artefact")
+        except ArtefactError:
+            raise
+        except Exception as exc:  # pyarrow and numpy raise several types for a damaged file
+            raise ArtefactError(f"{path}: cannot be read: {exc}") from None
+    return Artefact(kind, _Parts(tables, "table", directory), _Parts(arrays, "array", directory),
+                    _Parts(manifest["meta"], "setting", directory), manifest)

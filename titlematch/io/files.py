@@ -6,7 +6,9 @@ import hashlib
 import os
 import tempfile
 from pathlib import Path
-from typing import Iterator
+from typing import Iterable, Iterator
+
+from .errors import InputError
 
 CSV_SUFFIXES = {".csv", ".txt", ".tsv"}
 
@@ -22,6 +24,25 @@ def file_sha256(path: str | os.PathLike) -> str:
         for block in iter(lambda: handle.read(1 << 20), b""):
             digest.update(block)
     return digest.hexdigest()
+
+
+def refuse_overwrite(out: str | os.PathLike, inputs: Iterable, option: str = "--out") -> None:
+    """Raise ``InputError`` when writing ``out`` would replace one of ``inputs`` (None entries are
+    skipped): the same file by path or by inode (a hard link), or a directory that holds an input,
+    since an artefact directory is replaced whole. The one check every command that writes runs."""
+    out = Path(out)
+    target = out.resolve()
+    for given in inputs:
+        if given is None or str(given) == "":
+            continue
+        source = Path(given)
+        resolved = source.resolve()
+        same = target == resolved or (out.exists() and source.exists() and os.path.samefile(out, source))
+        if same or target in resolved.parents:
+            what = "is" if same else "holds"
+            raise InputError(f"{option} {out} {what} the input {source}: the input would be overwritten; "
+                             f"choose another {option}")
+
 
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike) -> Iterator[Path]:

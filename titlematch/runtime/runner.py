@@ -46,8 +46,8 @@ import pyarrow.parquet as pq
 
 from .. import __version__
 from ..io import (CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, REJECT_COLUMNS, ROW_COLUMN, InputError,
-                 ReadPosition, Rejects, TableChunk, TableReader, atomic_path, file_sha256, rejects_path_for,
-                 write_table)
+                 ReadPosition, Rejects, TableChunk, TableReader, atomic_path, file_sha256, refuse_overwrite,
+                 rejects_path_for, write_table)
 from .progress import progress
 
 log = logging.getLogger(__name__)
@@ -156,8 +156,11 @@ def run_chunked(input_path: str | os.PathLike, out_path: str | os.PathLike, proc
     suffix = out_path.suffix.lower()
     if suffix not in CSV_SUFFIXES | PARQUET_SUFFIXES | EXCEL_SUFFIXES:
         raise InputError(f"{out_path}: unknown output format {suffix!r}; use .csv or .parquet")
-    if input_path.exists() and out_path.exists() and out_path.resolve() == input_path.resolve():
-        raise InputError(f"{out_path}: the output would overwrite the input; choose another --out")
+    refuse_overwrite(out_path, [input_path])
+    if rejects_path is not None:
+        refuse_overwrite(rejects_path, [input_path], "rejects file")
+    else:
+        refuse_overwrite(rejects_path_for(out_path), [input_path], "rejects file")
     reader = TableReader(input_path, chunk_rows=chunk_rows, required=tuple(required), encoding=encoding)
     reserved = [c for c in (REJECT_REASON_COLUMN, REJECT_COLUMN_COLUMN) if c in reader.columns]
     if reserved:  # a user's column must never be taken for the step's own marks
@@ -411,9 +414,10 @@ class _RunDirectory:
         differs = [name for name in labels if saved_identity.get(name) != self.identity[name]]
         if differs:
             detail = ""
-            if "options_sha256" in differs:
-                detail = f" (then: {json.dumps(saved.get('options'), sort_keys=True)}; now: " \
-                         f"{json.dumps(self.options, sort_keys=True)})"
+            if "options_sha256" in differs:  # name the options that changed, not their (long) values
+                then = saved.get("options") if isinstance(saved.get("options"), dict) else {}
+                changed = sorted(k for k in set(then) | set(self.options) if then.get(k) != self.options.get(k))
+                detail = f" ({', '.join(changed[:8]) or 'unreadable'}{' ...' if len(changed) > 8 else ''})"
             state = "a finished" if saved.get("state") == "complete" else "an unfinished"
             raise RunConflict(f"{self.path}: holds {state} run with different "
                               f"{', '.join(labels[d] for d in differs)}{detail}; rerun with --restart to discard "
