@@ -91,7 +91,7 @@ def test_a_row_with_several_reasons_counts_once(tmp_path):
     (tmp_path / "in.csv").write_text(f"id,title\n1,{long}\n2,{long}\n3,ok\n", encoding="utf-8")
 
     def refuse_first(frame):  # row 2 (id 1) already has a truncation note; now it is refused too
-        return frame.assign(_reject_reason=(frame["id"] == "1").map({True: "refused", False: ""}))
+        return frame.assign(**{REJECT_REASON_COLUMN: (frame["id"] == "1").map({True: "refused", False: ""})})
     result = run_chunked(tmp_path / "in.csv", tmp_path / "o.csv", refuse_first, options={}, quiet=True)
     rejects = pd.read_csv(result.rejects_path, dtype=str, keep_default_na=False)
     assert rejects["row"].tolist() == ["2", "2", "3"]  # two reasons for row 2, one note for row 3

@@ -111,6 +111,7 @@ def _assemble_features(directory, out) -> int:
 def run(args) -> int:
     import pandas as pd
 
+    from ..io import read_column
     from ..runtime.progress import Summary
     from ..runtime.fingerprint import run_options
     from ..runtime.runner import run_chunked
@@ -141,15 +142,13 @@ def run(args) -> int:
                          desc="code titles", **run_arguments(args))
     counts = {"rows_in": result.rows_in, "coded": result.rows_out}
     if step.model is not None:
-        column = args.output_prefix + "decision"
-        decisions = pd.read_parquet(result.output, columns=[column]) if str(result.output).endswith(
-            (".parquet", ".pq")) else pd.read_csv(result.output, usecols=[column], dtype=str)
-        counts |= {"accepted": int((decisions[column] == "accept").sum()),
-                   "referred": int((decisions[column] == "refer").sum())}
+        decisions = read_column(result.output, args.output_prefix + "decision")  # .csv, .parquet or .xlsx
+        counts |= {"accepted": int((decisions == "accept").sum()), "referred": int((decisions == "refer").sum())}
     counts["rejected"] = result.rows_rejected
     if result.resumed_from:
         counts["chunks_resumed"] = result.resumed_from
     summary.set(**counts)
+    summary.note(f"encoding {result.encoding_note}" if result.encoding_note else "")
     summary.print()
     if features_dir is not None:
         _assemble_features(features_dir, args.features)

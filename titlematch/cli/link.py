@@ -133,9 +133,7 @@ class LinkStep:
 
 
 def run(args) -> int:
-    import pandas as pd
-
-    from ..io import InputError, Rejects, TableReader, read_table, rejects_path_for, write_table
+    from ..io import InputError, Rejects, TableReader, read_column, read_table, rejects_path_for, write_table
     from ..linking.linker import EstablishmentLinker
     from ..runtime.progress import Summary
     from ..runtime.fingerprint import run_options
@@ -181,13 +179,12 @@ def run(args) -> int:
                           neighbours=args.neighbours, max_block=args.max_block, output_prefix=args.output_prefix)
     result = run_chunked(args.file, args.out, LinkStep(linker, str(args.file)), options=options,
                          desc="link records", **run_arguments(args))
-    column = args.output_prefix + "decision"
-    decisions = (pd.read_parquet(result.output, columns=[column]) if str(result.output).endswith((".parquet", ".pq"))
-                 else pd.read_csv(result.output, usecols=[column], dtype=str, keep_default_na=False))
-    counts = decisions[column].value_counts()
+    # .csv, .parquet or .xlsx, as written
+    counts = read_column(result.output, args.output_prefix + "decision").value_counts()
     summary.set(rows_in=result.rows_in, accepted=counts.get("accept", 0), referred=counts.get("refer", 0),
                 no_match=counts.get("no-match", 0), rejected=result.rows_rejected + len(rejects.rows()))
     if len(rejects):  # register rows refused while building the index
         rejects.write(rejects_path_for(Path(args.out).with_name(Path(args.out).stem + ".register")))
+    summary.note(f"encoding {result.encoding_note}" if result.encoding_note else "")
     summary.print()
     return 0

@@ -121,5 +121,6 @@ def run(args) -> int:
     if result.resumed_from:
         counts["chunks_resumed"] = result.resumed_from
     summary.set(**counts)
+    summary.note(f"encoding {result.encoding_note}" if result.encoding_note else "")
     summary.print()
     return 0

@@ -12,12 +12,13 @@ from .errors import InputError
 from .files import CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, atomic_path, file_sha256, refuse_overwrite
 from .encoding import detect_file_encoding
 from .csvparse import MAX_LINE_BYTES
-from .read import MAX_CELL_CHARS, ReadPosition, TableChunk, TableReader, iter_table_chunks, read_table
+from .read import (MAX_CELL_CHARS, ReadPosition, TableChunk, TableReader, iter_table_chunks, read_column,
+                   read_table)
 from .rejects import REJECT_COLUMNS, ROW_COLUMN, Rejects, rejects_path_for, require_columns
 from .write import write_table
 
 __all__ = ["InputError", "CSV_SUFFIXES", "EXCEL_SUFFIXES", "PARQUET_SUFFIXES", "atomic_path", "file_sha256",
            "refuse_overwrite",
            "detect_file_encoding", "MAX_LINE_BYTES", "MAX_CELL_CHARS", "ReadPosition", "TableChunk",
-           "TableReader", "iter_table_chunks", "read_table", "REJECT_COLUMNS", "ROW_COLUMN", "Rejects",
+           "TableReader", "iter_table_chunks", "read_column", "read_table", "REJECT_COLUMNS", "ROW_COLUMN", "Rejects",
            "rejects_path_for", "require_columns", "write_table"]

@@ -153,10 +153,11 @@ class _Lines:
             except UnicodeDecodeError as exc:
                 payload = _BadLine(f"cannot decode as {self.codec}: byte {raw[exc.start]:#04x} "
                                    f"at position {exc.start}")
+                payload.sample = raw[:400].decode(self.codec, "backslashreplace")  # shown in the rejects
         self._ahead.append((self._line, start, self._offset, payload))
 
 def _line_sample(item: tuple) -> str:
-    text = item[3] if isinstance(item[3], str) else ""
+    text = item[3] if isinstance(item[3], str) else getattr(item[3], "sample", "")
     return text.rstrip("\r\n").replace("\x00", "\\0")
 
 def _records(lines: _Lines, delimiter: str, width: int) -> Iterator[tuple[int, list[str] | None, str, str | None]]:

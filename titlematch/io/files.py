@@ -40,7 +40,7 @@ def refuse_overwrite(out: str | os.PathLike, inputs: Iterable, option: str = "--
         same = target == resolved or (out.exists() and source.exists() and os.path.samefile(out, source))
         if same or target in resolved.parents:
             what = "is" if same else "holds"
-            raise InputError(f"{option} {out} {what} the input {source}: the input would be overwritten; "
+            raise InputError(f"{option} {out} {what} the input {source}: the output would overwrite the input; "
                              f"choose another {option}")
 
 

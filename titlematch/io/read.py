@@ -17,14 +17,17 @@ it. Blank lines are not records. Nothing else is dropped.
 from __future__ import annotations
 
 import csv
+import json
 import logging
 import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator, Sequence
 
+import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .csvparse import _BadLine, _Lines, _records, _sniff_delimiter
@@ -70,6 +73,9 @@ class TableChunk:
 
 def _clean_header(header: list, path: Path, strip: bool = True) -> list[str]:
     names = [str(h).strip().replace("\x00", "") if strip else str(h) for h in header]
+    nul = [n for n in names if "\x00" in n]
+    if nul:  # the library's working columns start with NUL: a read column never may
+        raise InputError(f"{path}: column name {nul[0]!r} contains a NUL character; rename that column")
     if ROW_COLUMN in names:
         raise InputError(f"{path}: column name {ROW_COLUMN!r} is reserved for row numbers; rename that column")
     seen: dict[str, int] = {}
@@ -120,6 +126,53 @@ def _check_frame(frame: pd.DataFrame, path: Path, rejects: Rejects, max_cell: in
             frame.loc[long, column] = values[long].str.slice(0, max_cell)
     return frame[keep].reset_index(drop=True)
 
+def _arrow_column_strings(column: pa.ChunkedArray) -> tuple[np.ndarray, dict[int, str]]:
+    """A Parquet column as text, exactly: Arrow casts integers (nullable ones too, which pandas would
+    turn into floats), decimals and dates to their digits; binary cells are decoded as UTF-8 and
+    the ones that are not valid UTF-8 come back in ``{position: (reason, shown value)}``. Missing
+    values are ``""``."""
+    kind = column.type
+    if pa.types.is_dictionary(kind):
+        column = pa.chunked_array([c.dictionary_decode() for c in column.chunks], kind.value_type)
+        kind = column.type
+    bad: dict[int, tuple[str, str]] = {}
+    if pa.types.is_binary(kind) or pa.types.is_large_binary(kind) or pa.types.is_fixed_size_binary(kind):
+        values = np.empty(len(column), dtype=object)
+        for i, raw in enumerate(column.to_pylist()):
+            try:
+                values[i] = "" if raw is None else raw.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                values[i] = ""
+                bad[i] = (f"binary cell is not UTF-8 text (byte {raw[exc.start]:#04x} at position {exc.start})",
+                          raw[:200].decode("utf-8", "backslashreplace"))
+        return values, bad
+    if not (pa.types.is_string(kind) or pa.types.is_large_string(kind)):
+        try:
+            column = pc.cast(column, pa.string())
+        except (pa.ArrowNotImplementedError, pa.ArrowInvalid):  # lists, structs, maps: their JSON text
+            values = np.array(["" if v is None else json.dumps(v, default=str, ensure_ascii=False)
+                               for v in column.to_pylist()], dtype=object)
+            return values, bad
+    values = column.to_numpy(zero_copy_only=False).astype(object)
+    values[pd.isna(values)] = ""
+    return values, bad
+
+
+def _arrow_strings(table: pa.Table, columns: list[str], path: Path, first: int, rejects: Rejects) -> pd.DataFrame:
+    """A Parquet chunk as a frame of strings with ``ROW_COLUMN``; rows holding undecodable binary cells
+    go to ``rejects`` with their row and column and are left out."""
+    data, keep = {}, np.ones(table.num_rows, dtype=bool)
+    for name, column in zip(columns, table.columns):
+        values, bad = _arrow_column_strings(column)
+        for position, (reason, shown) in bad.items():
+            rejects.add(path, first + position, name, reason, shown)
+            keep[position] = False
+        data[name] = values
+    frame = pd.DataFrame(data, columns=columns) if columns else pd.DataFrame(index=range(table.num_rows))
+    frame[ROW_COLUMN] = np.arange(first, first + table.num_rows, dtype="int64")
+    return frame[keep].reset_index(drop=True) if not keep.all() else frame
+
+
 def _as_strings(frame: pd.DataFrame) -> pd.DataFrame:
     frame = frame.astype(object)
     return frame.where(frame.notna(), "").astype(str)
@@ -159,6 +212,7 @@ class TableReader:
         self.chunk_rows = chunk_rows
         self.max_cell = max_cell
         self.encoding: str | None = None
+        self.encoding_note = ""  # the encoding and the evidence behind it, for the summary line
         suffix = self.path.suffix.lower()
         self.format = "parquet" if suffix in PARQUET_SUFFIXES else "xlsx" if suffix in EXCEL_SUFFIXES else "csv"
         getattr(self, f"_open_{self.format}")(encoding)
@@ -168,8 +222,17 @@ class TableReader:
     # -- opening: columns, row count (exact, or estimated from newlines for CSV) ------------------
     def _open_csv(self, encoding: str | None) -> None:
         with self._open_binary() as handle:
-            self.encoding, newlines, complete = _scan(handle, self.path, encoding)
-            log.info("%s: decoded as %s (%s)", self.path, self.encoding, "as requested" if encoding else "detected")
+            self.encoding, newlines, complete, evidence = _scan(handle, self.path, encoding)
+            self.encoding_note = f"{self.encoding} ({'as requested' if encoding else 'detected'})"
+            if self.encoding.startswith("utf-8") and evidence.bad_lines:
+                # a UTF-8 file with a few lines that are not: those lines go to the rejects, the rest stays intact
+                self.encoding_note += f", {evidence.bad_lines:,} line(s) not UTF-8 set aside in the rejects"
+                log.warning("%s: decoded as %s", self.path, self.encoding_note)
+            elif evidence.utf8_lines:
+                self.encoding_note += f"; {evidence.utf8_lines:,} line(s) read as UTF-8 would differ"
+                log.warning("%s: decoded as %s", self.path, self.encoding_note)
+            else:
+                log.info("%s: decoded as %s", self.path, self.encoding_note)
             lines = _Lines(handle, self.encoding, block=1 << 14)  # the header only
             try:
                 first = next(lines)
@@ -197,8 +260,14 @@ class TableReader:
         except Exception as exc:  # pyarrow raises several types for a damaged file
             raise InputError(f"{self.path}: not a readable Parquet file: {exc}") from exc
         schema = self._parquet.schema_arrow
+        # pandas keeps a named index (say record_id) as a column: it is data and is read like the
+        # others; an unnamed index (__index_level_0__, row labels pandas made up) is left out, said so
         index = (schema.pandas_metadata or {}).get("index_columns", [])
-        self._fields = [n for n in schema.names if n not in {i for i in index if isinstance(i, str)}]
+        unnamed = {i for i in index if isinstance(i, str) and i.startswith("__index_level_")}
+        if unnamed:
+            log.warning("%s: unnamed pandas index column(s) %s not read (row labels, not data)",
+                        self.path, ", ".join(sorted(unnamed)))
+        self._fields = [n for n in schema.names if n not in unnamed]
         self.columns = _clean_header(self._fields, self.path, strip=False)
         self.total_rows = self._parquet.metadata.num_rows
 
@@ -276,12 +345,14 @@ class TableReader:
             yield self._table_chunk(index, pending, done)
 
     def _table_chunk(self, index: int, table, done: int) -> TableChunk:
-        frame = table if isinstance(table, pd.DataFrame) else table.to_pandas()
-        frame = _as_strings(frame)
-        frame.columns = self.columns
         first = done + (2 if self.format == "xlsx" else 1)  # spreadsheet rows count the header row
-        frame[ROW_COLUMN] = pd.RangeIndex(first, first + len(frame)).to_numpy(dtype="int64")
         rejects = Rejects()
+        if isinstance(table, pd.DataFrame):
+            frame = _as_strings(table)
+            frame.columns = self.columns
+            frame[ROW_COLUMN] = pd.RangeIndex(first, first + len(frame)).to_numpy(dtype="int64")
+        else:
+            frame = _arrow_strings(table, self.columns, self.path, first, rejects)
         frame = _check_frame(frame.reset_index(drop=True), self.path, rejects, self.max_cell)
         end = ReadPosition(done + len(table))
         return TableChunk(index, frame, rejects, len(table), ReadPosition(done), end)
@@ -332,3 +403,15 @@ def read_table(path: str | os.PathLike, *, required: Sequence[str] = (), encodin
         frame[ROW_COLUMN] = pd.Series([], dtype="int64")
         return frame
     return pd.concat(frames, ignore_index=True) if len(frames) > 1 else frames[0].reset_index(drop=True)
+
+
+def read_column(path: str | os.PathLike, column: str) -> pd.Series:
+    """One column of a table this library wrote (CSV, Parquet or .xlsx, by suffix) as strings:
+    for the counts a command prints after writing its output."""
+    path = Path(path)
+    suffix = path.suffix.lower()
+    if suffix in PARQUET_SUFFIXES:
+        return pd.read_parquet(path, columns=[column])[column].astype(str)
+    if suffix in EXCEL_SUFFIXES:
+        return pd.read_excel(path, usecols=[column], dtype=str, keep_default_na=False)[column]
+    return pd.read_csv(path, usecols=[column], dtype=str, keep_default_na=False)[column]

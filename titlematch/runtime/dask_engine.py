@@ -170,7 +170,7 @@ def process_dask(ddf, process: Callable[[pd.DataFrame], pd.DataFrame], *, meta: 
     Returns
     -------
     dask.dataframe.DataFrame, lazy; ``.compute()`` gives the rows the local step gives, in order.
-    Rows the step refuses keep their ``_reject_reason`` here (no rejects file is written).
+    Rows the step refuses keep their ``REJECT_REASON_COLUMN`` here (no rejects file is written).
 
     Example::
 

@@ -25,13 +25,20 @@ class Summary:
         self.command = command
         self.quiet = quiet
         self.counts: dict[str, int] = {}
+        self.notes: list[str] = []
         self.start = time.perf_counter()
 
     def set(self, **counts: int) -> None:
         self.counts.update({k: int(v) for k, v in counts.items()})
 
+    def note(self, text: str) -> None:
+        """Add a short remark to the line (say the input's encoding and the evidence for it)."""
+        if text:
+            self.notes.append(text)
+
     def line(self) -> str:
         parts = [f"{k.replace('_', ' ')} {v:,}" for k, v in self.counts.items()]
+        parts += self.notes
         parts.append(f"time {time.perf_counter() - self.start:.1f} s")
         return f"titlematch {self.command}: " + ", ".join(parts)
 

@@ -52,8 +52,11 @@ from .progress import progress
 
 log = logging.getLogger(__name__)
 
-REJECT_REASON_COLUMN = "_reject_reason"  # process sets it non-empty on rows it refuses
-REJECT_COLUMN_COLUMN = "_reject_column"  # optional: the column the refusal is about
+# Working columns a step adds to mark refusals. Their names start with a NUL character, which no
+# column of a read table can hold (the readers refuse such names), so a user's own column, even one
+# called "_reject_reason", is never taken for them.
+REJECT_REASON_COLUMN = "\x00reject_reason"  # process sets it non-empty on rows it refuses
+REJECT_COLUMN_COLUMN = "\x00reject_column"  # optional: the column the refusal is about
 RUN_FORMAT = 1
 ENGINES = ("local", "dask")
 _MANIFEST, _JOURNAL, _LOCK = "manifest.json", "journal.jsonl", "lock"
@@ -81,6 +84,7 @@ class RunResult:
     rejects_path: Path
     run_dir: Path | None  # None when removed after success
     encoding: str | None
+    encoding_note: str = ""  # CSV: the encoding, how it was chosen, lines set aside ("" for other formats)
 
 
 def default_run_dir(out_path: str | os.PathLike) -> Path:
@@ -113,8 +117,8 @@ def run_chunked(input_path: str | os.PathLike, out_path: str | os.PathLike, proc
         assembled in memory.
     process : called with each chunk (strings plus ``_row``, the source row number) and returning
         one row per input row, in the same order. Extra columns are the step's results. A row with a
-        non-empty ``_reject_reason`` goes to the rejects file instead of the output (with the column
-        named in ``_reject_column`` if present); both columns are never written. ``_row`` may be
+        non-empty ``REJECT_REASON_COLUMN`` goes to the rejects file instead of the output (with the column
+        named in ``REJECT_COLUMN_COLUMN`` if present); both columns are never written. ``_row`` may be
         dropped or kept unchanged. It is also called on empty chunks and must return the same
         columns every time. For ``engine="dask"`` it must be picklable (a module-level function or
         an object such as a fitted coder); it is sent to each worker once.
@@ -216,7 +220,8 @@ def run_chunked(input_path: str | os.PathLike, out_path: str | os.PathLike, proc
     return RunResult(output=out_path, rows_in=counts.rows_in, rows_out=counts.rows_out,
                      rows_rejected=counts.rows_rejected, rows_flagged=counts.rows_flagged,
                      chunks=len(run.entries), resumed_from=resumed_from, rejects_path=rejects_path,
-                     run_dir=run_dir if keep_run else None, encoding=reader.encoding)
+                     run_dir=run_dir if keep_run else None, encoding=reader.encoding,
+                     encoding_note=reader.encoding_note)
 
 
 # -- engines ---------------------------------------------------------------------------------------
