@@ -51,3 +51,11 @@ def probability(text: str) -> float:
     if not 0.0 <= value <= 1.0:  # false for nan too
         raise argparse.ArgumentTypeError(f"expected a number from 0 to 1, got {text!r}")
     return value
+
+
+def check_title_context(args: argparse.Namespace) -> None:
+    """--title-col and --context-col must name two different columns."""
+    if args.title_col == args.context_col:
+        from ..io import InputError
+        raise InputError(f"--title-col and --context-col both name the column {args.title_col!r}; "
+                         "the context must be another column (or one the file does not have)")

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import argparse
 
-from ._run import add_run_arguments, run_arguments, probability
+from ._run import add_run_arguments, check_title_context, probability, run_arguments
 
 ORDER = 30
 
@@ -109,6 +109,7 @@ def _assemble_features(directory, out) -> int:
 
 
 def run(args) -> int:
+    check_title_context(args)
     import pandas as pd
 
     from ..io import read_column

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import argparse
 
-from ._run import probability
+from ._run import check_title_context, probability
 
 ORDER = 64
 
@@ -29,6 +29,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def run(args) -> int:
+    check_title_context(args)
     from ..coding.coder import TitleCoder
     from ..confidence.model import ConfidenceModel
     from ..io import read_table, write_table

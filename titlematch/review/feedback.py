@@ -125,7 +125,7 @@ def read_returned_queue(path: str | os.PathLike, issued: str | os.PathLike | Non
                         rejects: Rejects) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Read a returned queue and its issued table (``issued`` or the one beside ``path``); return
     (returned rows, checked decisions)."""
-    from .queue import unescape_formula
+    from ..io.write import unescape_formula
 
     issued_file = Path(issued) if issued else issued_path_for(path)
     if not issued_file.is_file():

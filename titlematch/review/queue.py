@@ -9,7 +9,6 @@ contradicts with high confidence: the review-first mode before an office trusts 
 """
 from __future__ import annotations
 
-
 import numpy as np
 import pandas as pd
 
@@ -18,28 +17,16 @@ from ..coding.dictionary import TitleDictionary
 from ..io import require_columns
 from ..confidence.routing import read_confidence
 from ..io.columns import add_outputs
+from ..io.write import escape_formula, unescape_formula  # noqa: F401  (re-exported for the queue's readers)
 
 QUEUE_COLUMNS = ["queue_id", "title_normalized", "records", "example_title", "context", "group",
                  "code", "code_title", "confidence", "code_2", "code_2_title", "confidence_2",
                  "code_3", "code_3_title", "confidence_3", "coder_code", "coder_remark"]
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
-
-
-def escape_formula(value):
-    """Prefix a text cell that a spreadsheet would run as a formula with an apostrophe
-    (OWASP guidance on CSV injection: cells starting with =, +, -, @, tab or carriage return)."""
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
-        return "'" + value
-    return value
-
-
-def unescape_formula(value):
-    if isinstance(value, str) and len(value) > 1 and value[0] == "'" and value[1] in "=+-@\t\r":
-        return value[1:]
-    return value
 
 
 def escape_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    """Formula-looking text escaped in every cell and name: for a queue written as CSV, which a
+    spreadsheet program opens too (an .xlsx is escaped by ``write_table`` itself)."""
     out = frame.copy()
     for col in out.columns:
         if out[col].dtype == object:
