@@ -166,10 +166,6 @@ def run_chunked(input_path: str | os.PathLike, out_path: str | os.PathLike, proc
     else:
         refuse_overwrite(rejects_path_for(out_path), [input_path], "rejects file")
     reader = TableReader(input_path, chunk_rows=chunk_rows, required=tuple(required), encoding=encoding)
-    reserved = [c for c in (REJECT_REASON_COLUMN, REJECT_COLUMN_COLUMN) if c in reader.columns]
-    if reserved:  # a user's column must never be taken for the step's own marks
-        raise InputError(f"{input_path}: column name(s) {', '.join(reserved)} are reserved for titlematch's "
-                         "bookkeeping; rename them")
     run_dir = Path(run_dir) if run_dir is not None else default_run_dir(out_path)
     rejects_path = Path(rejects_path) if rejects_path is not None else rejects_path_for(out_path)
     identity = {
