@@ -28,3 +28,17 @@ def small_demo(tmp_path_factory):
     assert main(["calibrate", "--dictionary", str(out / "dictionary"), "--gold", str(data / "gold_2025.csv"),
                  "--min-accuracy", "0.98", "--out", str(out / "model"), "--quiet"]) == 0
     return {"data": data, "dictionary": out / "dictionary", "model": out / "model"}
+
+
+@pytest.fixture(scope="session")
+def small_demo_coded(small_demo, tmp_path_factory):
+    """The demo's new year coded with its model (``coded.csv``) and the referral queue issued for it
+    (``queue.xlsx`` and ``queue.issued.csv``), in one directory."""
+    from titlematch.cli import main
+
+    path = tmp_path_factory.mktemp("small_demo_coded")
+    assert main(["code", str(small_demo["data"] / "new_2025.csv"), "--dictionary", str(small_demo["dictionary"]),
+                 "--model", str(small_demo["model"]), "--out", str(path / "coded.csv"), "--quiet"]) == 0
+    assert main(["queue", str(path / "coded.csv"), "--dictionary", str(small_demo["dictionary"]),
+                 "--out", str(path / "queue.xlsx"), "--quiet"]) == 0
+    return path

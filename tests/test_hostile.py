@@ -18,15 +18,9 @@ def run(capsys, *argv) -> tuple[int, str, str]:
     return code, out, err
 
 
-@pytest.fixture(scope="module")
-def coded(small_demo, tmp_path_factory):
-    """The demo's new year coded with its model, and the referral queue issued for it."""
-    path = tmp_path_factory.mktemp("hostile")
-    assert main(["code", str(small_demo["data"] / "new_2025.csv"), "--dictionary", str(small_demo["dictionary"]),
-                 "--model", str(small_demo["model"]), "--out", str(path / "coded.csv"), "--quiet"]) == 0
-    assert main(["queue", str(path / "coded.csv"), "--dictionary", str(small_demo["dictionary"]),
-                 "--out", str(path / "queue.xlsx"), "--quiet"]) == 0
-    return path
+@pytest.fixture
+def coded(small_demo_coded):
+    return small_demo_coded
 
 
 # ------------------------------------------------------------------------------------------- F7
