@@ -361,3 +361,34 @@ def test_f14_a_missing_confidence_is_never_accepted():
     assert route([float("nan"), 0.0], 0.0).tolist() == ["refer", "accept"]
     with pytest.raises(ValueError, match="from 0 to 1"):
         route([0.5], -1)
+
+
+# ------------------------------------------------------------------------------------------- F3
+def test_f3_an_input_code_column_is_never_overwritten(tmp_path, capsys, small_demo):
+    gold = pd.read_csv(small_demo["data"] / "gold_2025.csv", dtype=str, keep_default_na=False).head(40)
+    gold.to_csv(tmp_path / "gold.csv", index=False)
+    before = (tmp_path / "gold.csv").read_bytes()
+    args = ["code", tmp_path / "gold.csv", "--dictionary", small_demo["dictionary"], "--quiet"]
+    code, out, err = run(capsys, *args, "--out", tmp_path / "o.csv")
+    assert code == 2 and "already has column(s) code" in err and "--output-prefix" in err
+    assert not (tmp_path / "o.csv").exists()
+    code, out, err = run(capsys, *args, "--out", tmp_path / "p.csv", "--output-prefix", "machine_")
+    assert code == 0, err
+    written = read_out(tmp_path / "p.csv")
+    assert written["code"].tolist() == gold["code"].tolist()          # the manual codes, every one
+    assert "machine_code" in written.columns
+    assert (tmp_path / "gold.csv").read_bytes() == before
+
+
+def test_f12_title_col_beside_a_title_column_and_a_clashing_context(tmp_path, capsys, small_demo):
+    write_csv(tmp_path / "in.csv", "id,title,job_title,context\n1,nurse,truck driver,trucking\n2,cook,cashier,\n")
+    code, out, err = run(capsys, "code", tmp_path / "in.csv", "--dictionary", small_demo["dictionary"],
+                         "--out", tmp_path / "o.csv", "--title-col", "job_title", "--quiet")
+    assert code == 0, err
+    written = read_out(tmp_path / "o.csv")
+    assert written[["title", "job_title", "context"]].values.tolist() == [["nurse", "truck driver", "trucking"],
+                                                                          ["cook", "cashier", ""]]
+    code, out, err = run(capsys, "code", tmp_path / "in.csv", "--dictionary", small_demo["dictionary"],
+                         "--out", tmp_path / "o2.csv", "--context-col", "job_title", "--quiet")
+    assert code == 0, err
+    assert read_out(tmp_path / "o2.csv")["job_title"].tolist() == ["truck driver", "cashier"]

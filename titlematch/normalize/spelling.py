@@ -216,8 +216,7 @@ class SpellingCorrector:
         best, scored = limit + 1, []
         for candidate in self._candidate_words(word):
             distance = DamerauLevenshtein.distance(word, candidate, score_cutoff=limit)
-            # frequency evidence: a word seen once is the target of a one-edit correction at most
-            if distance <= limit and self.vocabulary_[candidate] >= distance:
+            if distance <= limit:
                 scored.append((distance, -self.vocabulary_[candidate], candidate))
                 best = min(best, distance)
         top = sorted(s for s in scored if s[0] == best)
