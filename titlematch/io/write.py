@@ -9,6 +9,7 @@ naming the file, the first row and column changed, so nothing changes unannounce
 """
 from __future__ import annotations
 
+import csv
 import logging
 import os
 import re
@@ -75,6 +76,17 @@ def spreadsheet_safe(frame: pd.DataFrame) -> tuple[pd.DataFrame, dict]:
     return out, changed
 
 
+def csv_quoting(frame: pd.DataFrame) -> int:
+    """The csv quoting for ``frame``: minimal, unless a text cell holds a carriage return. Rows end in
+    ``\n``, and the csv module then leaves a lone ``\r`` unquoted, which a reader takes for the end
+    of the line: the cell would be lost. Quoting every cell keeps it (and reads back the same)."""
+    for column in frame.columns:
+        values = frame[column]
+        if values.dtype == object and values.map(lambda v: isinstance(v, str) and "\r" in v).any():
+            return csv.QUOTE_ALL
+    return csv.QUOTE_MINIMAL
+
+
 def write_table(frame: pd.DataFrame, path: str | os.PathLike) -> Path:
     """Write ``frame`` as CSV, Parquet or .xlsx (by the suffix), atomically; ``_row`` is not written.
 
@@ -89,7 +101,7 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike) -> Path:
             safe, changed = spreadsheet_safe(frame)
             safe.to_excel(tmp, index=False, engine="openpyxl")
         else:
-            frame.to_csv(tmp, index=False, lineterminator="\n")
+            frame.to_csv(tmp, index=False, lineterminator="\n", quoting=csv_quoting(frame))
     if suffix in EXCEL_SUFFIXES and changed["first"] is not None:
         row, column = changed["first"]
         where = "the header" if row < 0 else f"row {row + 2}, column {column!r}"

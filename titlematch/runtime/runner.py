@@ -48,6 +48,7 @@ from .. import __version__
 from ..io import (CSV_SUFFIXES, EXCEL_SUFFIXES, PARQUET_SUFFIXES, REJECT_COLUMNS, ROW_COLUMN, InputError,
                  ReadPosition, Rejects, TableChunk, TableReader, atomic_path, file_sha256, refuse_overwrite,
                  rejects_path_for, write_table)
+from ..io.write import csv_quoting
 from .progress import progress
 
 log = logging.getLogger(__name__)
@@ -252,7 +253,8 @@ def work_on_chunk(chunk: TableChunk, process: Process, chunk_format: str = "csv"
     result = process(chunk.frame.copy())
     output, rejects, counts = _finish_chunk(chunk, result)
     if chunk_format == "csv":
-        payload = output.to_csv(index=False, header=False, lineterminator="\n").encode("utf-8")
+        payload = output.to_csv(index=False, header=False, lineterminator="\n",
+                                quoting=csv_quoting(output)).encode("utf-8")
     else:
         sink = pa.BufferOutputStream()
         pq.write_table(pa.Table.from_pandas(output, preserve_index=False), sink)
@@ -567,7 +569,7 @@ def _assemble_csv(frames: Iterable[pd.DataFrame], path: Path, columns: list[str]
         with open(tmp, "w", encoding="utf-8", newline="") as handle:
             header = True
             for frame in frames:
-                frame.to_csv(handle, index=False, header=header, lineterminator="\n")
+                frame.to_csv(handle, index=False, header=header, lineterminator="\n", quoting=csv_quoting(frame))
                 header = False
             if header:
                 pd.DataFrame(columns=columns).to_csv(handle, index=False, lineterminator="\n")
