@@ -205,11 +205,11 @@ class TitleCoder(BaseEstimator):
         source = frame.attrs.get("source_file", "<input>")
         units, unit_of_row, normalized = self._units(frame)
         cands = self._unit_candidates(units)
-        outputs = self._outputs(units, unit_of_row, normalized, cands, confidence)
+        outputs = self._outputs(frame, units, unit_of_row, normalized, cands, confidence)
         coded = add_outputs(frame, outputs, prefix=self.output_prefix, source=source)
         return coded, (_per_record(cands, unit_of_row) if with_features else None)
 
-    def _outputs(self, units, unit_of_row, normalized, cands, confidence=None) -> pd.DataFrame:
+    def _outputs(self, frame, units, unit_of_row, normalized, cands, confidence=None) -> pd.DataFrame:
         """The columns ``code`` adds, unprefixed, one row per input row (positional index)."""
         if confidence is not None:
             cands = confidence.score_candidates(cands)
@@ -239,9 +239,10 @@ class TitleCoder(BaseEstimator):
         return found[at] if len(text) else np.array([], dtype=object)
 
     def predict(self, X) -> np.ndarray:
-        units, unit_of_row, normalized = self._units(self._as_frame(X))
+        frame = self._as_frame(X)
+        units, unit_of_row, normalized = self._units(frame)
         cands = self._unit_candidates(units)
-        return self._outputs(units, unit_of_row, normalized, cands)["code"].to_numpy(dtype=object)
+        return self._outputs(frame, units, unit_of_row, normalized, cands)["code"].to_numpy(dtype=object)
 
     def predict_proba(self, X) -> np.ndarray:
         """Scores over ``classes_`` normalized per record (rows without candidates are all zero)."""
