@@ -6,6 +6,7 @@ by its id: its cells must be there as written, or its row number must be in the 
 """
 from __future__ import annotations
 
+import csv
 import re
 
 import pandas as pd
@@ -63,7 +64,8 @@ def test_csv_cells_survive_or_are_rejected(tmp_path_factory, capsys, data):
     ids = ["" if r[0] is None else f"{r[0]:021d}" for r in data]  # leading zeros and long numbers as written
     frame = pd.DataFrame({"key": [f"k{i}" for i in range(len(data))], "id": ids,
                           "title": [r[1] for r in data], "note": [r[2] for r in data]})
-    frame.to_csv(tmp / "in.csv", index=False)
+    # every cell quoted: a lone carriage return left unquoted would end the line for any reader
+    frame.to_csv(tmp / "in.csv", index=False, quoting=csv.QUOTE_ALL)
     # a CSV row number is the line where the record starts: count the lines of the quoted cells before it
     _check_csv(tmp, frame, capsys)
 
