@@ -10,22 +10,26 @@ import psutil
 
 
 class PeakMemory:
-    """Samples this process's resident memory in a thread; ``peak_mb`` after the block."""
+    """Samples this process's resident memory in a thread; ``peak_mb`` after the block.
+
+    Subclasses change what is measured by overriding :meth:`sample`."""
 
     def __init__(self, interval: float = 0.05):
         self.interval = interval
         self.peak = 0
         self._stop = threading.Event()
 
-    def __enter__(self):
-        proc = psutil.Process(os.getpid())
-        self.base = proc.memory_info().rss
+    def sample(self) -> int:
+        return psutil.Process(os.getpid()).memory_info().rss
 
-        def sample():
+    def __enter__(self):
+        self.base = self.sample()
+
+        def loop():
             while not self._stop.is_set():
-                self.peak = max(self.peak, proc.memory_info().rss)
+                self.peak = max(self.peak, self.sample())
                 time.sleep(self.interval)
-        self._thread = threading.Thread(target=sample, daemon=True)
+        self._thread = threading.Thread(target=loop, daemon=True)
         self._thread.start()
         return self
 

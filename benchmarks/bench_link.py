@@ -36,7 +36,6 @@ import os
 import resource
 import sys
 import tempfile
-import threading
 import time
 from pathlib import Path
 
@@ -49,6 +48,9 @@ from titlematch.linking.register import RegisterIndex
 from titlematch.datasets.scenario import make_register_scenario
 from titlematch.runtime.pool import resolve_workers
 
+sys.path.insert(0, str(Path(__file__).parent))
+from _common import PeakMemory  # noqa: E402
+
 
 def cpu_seconds() -> float:
     """CPU time of this process and its finished children (forked workers), user + system."""
@@ -60,12 +62,12 @@ def peak_rss_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
 
 
-class TreeMemory:
+class TreeMemory(PeakMemory):
     """Peak memory of this process and its children, sampled every ``interval`` seconds: this
     process's resident set plus each child's unique set (forked workers share the parent's pages)."""
 
     def __init__(self, interval: float = 0.5):
-        self.interval, self.peak, self._stop = interval, 0, threading.Event()
+        super().__init__(interval)
 
     def sample(self) -> int:
         import psutil
@@ -77,23 +79,6 @@ class TreeMemory:
             except (psutil.Error, OSError):
                 pass
         return total
-
-    def __enter__(self):
-        def loop():
-            while not self._stop.is_set():
-                self.peak = max(self.peak, self.sample())
-                time.sleep(self.interval)
-        self._thread = threading.Thread(target=loop, daemon=True)
-        self._thread.start()
-        return self
-
-    def __exit__(self, *exc):
-        self._stop.set()
-        self._thread.join()
-
-    @property
-    def peak_mb(self) -> float:
-        return self.peak / 2 ** 20
 
 
 def limit_pairs_per_second(out_pairs: pd.DataFrame, index: RegisterIndex, new_prepared: pd.DataFrame) -> float:
