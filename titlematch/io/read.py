@@ -228,7 +228,7 @@ class TableReader:
                 # a UTF-8 file with a few lines that are not: those lines go to the rejects, the rest stays intact
                 self.encoding_note += f", {evidence.bad_lines:,} line(s) not UTF-8 set aside in the rejects"
                 log.warning("%s: decoded as %s", self.path, self.encoding_note)
-            elif evidence.utf8_lines:
+            elif evidence.utf8_lines and not self.encoding.startswith("utf-8"):
                 self.encoding_note += f"; {evidence.utf8_lines:,} line(s) read as UTF-8 would differ"
                 log.warning("%s: decoded as %s", self.path, self.encoding_note)
             else:
