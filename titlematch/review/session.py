@@ -13,42 +13,28 @@ import re
 import threading
 import time
 
-import numpy as np
 import pandas as pd
 
 from ..coding.dictionary import TitleDictionary
 from ..io import InputError
 from ..normalize.title import normalize_title
-from .decisions import DECIDED, Journal, in_double_sample, parse_time
+from .decisions import DECIDED, Journal, in_double_sample
 from .search import ClassificationSearch, parent_group
 
 LEASE_SECONDS = 20 * 60     # a title held this long without a sign of the coder goes back to the pool
 EXAMPLES = 4                # example records shown per title
-_FOLD = re.compile(r"[^a-z0-9]+")
 
 
 class DecisionRefused(ValueError):
     """A decision the session will not write (unknown code, title not held); the message says why."""
 
 
-def _fold(text: str) -> str:
-    return _FOLD.sub(" ", str(text).casefold()).strip()
-
-
 def find_residual_code(catalogue: pd.DataFrame) -> str:
-    """The classification's code for titles that cannot be coded, if it has one: a code whose
-    title is one of the residual-code phrases of the ``title_non_answers`` lexicon."""
-    try:
-        from ..io.lexicon import load_lexicon
-        lexicon = load_lexicon("title_non_answers")
-    except (FileNotFoundError, KeyError, ValueError):
-        return ""
-    phrases = {_fold(p) for p in lexicon.loc[lexicon["kind"] == "residual-code-title", "phrase"]}
-    for code, title in zip(catalogue["code"].astype(str), catalogue["title"].astype(str)):
-        folded = _fold(title)
-        if folded in phrases or any(folded.endswith(" " + p) or folded.startswith(p + " ") for p in phrases):
-            return code
-    return ""
+    """The classification's code for titles that cannot be coded, if it has one: the first code the
+    coder's gate offers for non-answers (:func:`titlematch.coding.gate.residual_codes`)."""
+    from ..coding.gate import residual_codes
+    codes = residual_codes(catalogue)
+    return codes[0] if codes else ""
 
 
 def group_titles() -> dict[str, str]:
