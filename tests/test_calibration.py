@@ -60,7 +60,7 @@ def test_calibrate_cli_writes_model_report_and_plots(tmp_path, scenario):
         assert (model_dir / name).is_file(), name
     assert (model_dir / "automation_curve.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     report = json.loads((model_dir / "report.json").read_text())
-    assert report["policy"] == "min_accuracy" and report["label_source"] == "gold sample"
+    assert report["policy"] == "min_accuracy" and report["label_source"] == "history and gold sample"
     model = ConfidenceModel.load(model_dir)
     assert model.threshold_ == pytest.approx(report["threshold"])
     # reported measures agree with the reference definitions on the saved reliability table

@@ -141,3 +141,24 @@ def test_fellegi_sunter_logit_worked_example():
     model.m_, model.u_, model.prior_ = pd.Series({"a": 0.9, "b": 0.8}), pd.Series({"a": 0.1, "b": 0.2}), 0.5
     logit = model.log_odds(pd.DataFrame({"a": [1], "b": [0]}))
     assert logit[0] == pytest.approx(np.log(9) + np.log(0.25))
+
+
+def test_gold_sample_scores_are_cross_fitted():
+    # Cross-fitting (Chernozhukov et al. 2018, "Double/debiased machine learning"): a gold record's
+    # score comes from a model that never saw its label. Flipping the labels of one fold's records
+    # leaves their own out-of-fold scores unchanged (GroupKFold's folds depend on the groups only,
+    # scikit-learn's documented behaviour), and changes the scores of the other folds.
+    from sklearn.model_selection import GroupKFold
+    X, y = _synthetic(2000, seed=1)
+    G, yg = _synthetic(900, seed=2)
+    groups = np.arange(len(G)) // 3
+    model = ConfidenceModel(models=("logistic",)).fit_with_gold(X, y, np.arange(len(X)), None, G, yg, groups)
+    assert model.source_ == "history and gold sample"
+    _, fold = next(GroupKFold(n_splits=3).split(G, yg, groups))
+    flipped = yg.copy()
+    flipped[fold] = 1 - flipped[fold]
+    again = ConfidenceModel(models=("logistic",)).fit_with_gold(X, y, np.arange(len(X)), None, G, flipped, groups)
+    np.testing.assert_allclose(again.oof_raw_[fold], model.oof_raw_[fold])
+    others = np.setdiff1d(np.arange(len(G)), fold)
+    assert not np.allclose(again.oof_raw_[others], model.oof_raw_[others])
+    assert ((model.oof_confidence_ >= 0) & (model.oof_confidence_ <= 1)).all()

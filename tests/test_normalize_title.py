@@ -124,6 +124,11 @@ def test_position_decides_lead_head_and_numbers():
     assert normalize_title("Team Lead").key == "team lead"
     assert normalize_title("Department Head").key == "department head"
     assert normalize_title("Team Lead").seniority == ""
+    # "Head of <unit>" is a post: ISCO-08 codes heads of organisational units among the managers of
+    # major group 1 (ISCO-08 structure, from memory), so "head" stays in the key there.
+    assert normalize_title("Head of Museum").key == "head of museum"
+    assert normalize_title("Head of Museum").seniority == ""
+    assert normalize_title("Head Cook").key == "cook" and normalize_title("Head Cook").seniority == "head"
     # A number before the job is not a grade.
     assert normalize_title("2 Cook").key == "2 cook"
     assert normalize_title("911 Dispatcher").key == "911 dispatcher"

@@ -91,7 +91,9 @@ class LinearTitleModel:
 
     def transform(self, keys, context_words) -> sp.csr_matrix:
         """Rows of kept features, TF-IDF weighted and L2-normalized."""
-        X = self._hashed(keys, context_words)
+        return self._weighted(self._hashed(keys, context_words))
+
+    def _weighted(self, X: sp.csr_matrix) -> sp.csr_matrix:
         col = self.column_of_[X.indices]
         keep = col >= 0
         rows = np.repeat(np.arange(X.shape[0]), np.diff(X.indptr))
@@ -116,7 +118,7 @@ class LinearTitleModel:
         self.features_ = candidates.astype(np.int64)
         n_units = len(y)
         self.idf_ = (np.log((1 + n_units) / (1 + df[candidates])) + 1).astype(np.float32)
-        X = self.transform(keys, context_words)
+        X = self._weighted(X)
         self._sgd(X, y, w, n_classes)
         # the nearest-centroid (Rocchio) model on the same features, blended in: with a handful of
         # titles per code it generalizes better than the softmax, which needs examples to find weights
@@ -129,31 +131,41 @@ class LinearTitleModel:
 
     def _sgd(self, X: sp.csr_matrix, y: np.ndarray, w: np.ndarray, n_classes: int) -> None:
         # Adagrad: a step per weight that shrinks with its own gradient history, so rare features
-        # (most of a title's words) still move fast while frequent ones settle
+        # (most of a title's words) still move fast while frequent ones settle. The minibatches are
+        # drawn once and visited in a new random order each epoch: each batch's own columns and its
+        # transpose are then computed once, not once per epoch (same accuracy on real titles, faster).
         rng = np.random.default_rng(self.random_state)
         W = np.zeros((X.shape[1], n_classes), dtype=np.float32)
         acc = np.full((X.shape[1], n_classes), 1e-6, dtype=np.float32)
         b = np.zeros(n_classes, dtype=np.float32)
         acc_b = np.full(n_classes, 1e-6, dtype=np.float32)
         w = w / w.mean()
+        order = rng.permutation(len(y))
+        batches = []
+        for start in range(0, len(y), self.batch_size):
+            rows = np.sort(order[start:start + self.batch_size])
+            Xb = X[rows]
+            cols = np.unique(Xb.indices)
+            Xs = sp.csr_matrix((Xb.data, np.searchsorted(cols, Xb.indices), Xb.indptr), shape=(len(rows), len(cols)))
+            batches.append((rows, cols, Xs, Xs.T.tocsr(), w[rows, None]))
         for _ in range(self.epochs):
-            order = rng.permutation(len(y))
-            for start in range(0, len(y), self.batch_size):
-                rows = order[start:start + self.batch_size]
-                Xb = X[rows]
-                cols = np.unique(Xb.indices)
-                Xs = sp.csr_matrix((Xb.data, np.searchsorted(cols, Xb.indices), Xb.indptr), shape=(len(rows), len(cols)))
+            for k in rng.permutation(len(batches)):
+                rows, cols, Xs, XsT, wb = batches[k]
                 Wc = W[cols]
                 scores = Xs @ Wc + b
                 scores -= scores.max(axis=1, keepdims=True)
                 P = np.exp(scores)
                 P /= P.sum(axis=1, keepdims=True)
                 P[np.arange(len(rows)), y[rows]] -= 1.0
-                P *= w[rows, None]
-                grad = np.asarray(Xs.T @ P) + self.alpha * Wc
-                ac = acc[cols] + grad * grad
+                P *= wb
+                grad = XsT @ P
+                grad += self.alpha * Wc
+                ac = acc[cols]
+                ac += grad * grad
                 acc[cols] = ac
-                W[cols] = Wc - self.learning_rate * grad / np.sqrt(ac)
+                grad *= self.learning_rate / np.sqrt(ac)
+                Wc -= grad
+                W[cols] = Wc
                 gb = P.sum(axis=0)
                 acc_b += gb * gb
                 b -= self.learning_rate * gb / np.sqrt(acc_b)

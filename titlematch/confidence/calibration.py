@@ -48,14 +48,18 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     train = history_labels(coder.dictionary_, max_units=max_units, random_state=random_state)
     stages.step("labels from history")
     model = ConfidenceModel(random_state=random_state)
-    if train["label"].nunique() == 2:
+    feats = gold_labels(coder, gold) if gold is not None else None
+    if feats is not None and train["label"].nunique() == 2 and feats["label"].nunique() == 2:
+        model.fit_with_gold(train[FEATURES], train["label"], train["record"], train["weight"],
+                            feats[FEATURES], feats["label"], feats["record"])
+    elif train["label"].nunique() == 2:
         model.fit(train[FEATURES], train["label"], groups=train["record"], sample_weight=train["weight"])
     else:
         model.fit_unsupervised(train)
     stages.step(f"model: {model.base_name_}")
     if gold is not None:
-        feats = gold_labels(coder, gold)
-        model.recalibrate(feats[FEATURES], feats["label"], groups=feats["record"])
+        if model.source_ != "history and gold sample":  # the history alone ranks; gold re-fits the map
+            model.recalibrate(feats[FEATURES], feats["label"], groups=feats["record"])
         feats["confidence"] = consistent(model.oof_confidence_, feats["record"].to_numpy())
         top = top_candidates(feats, len(gold))
         expert = gold["code"].astype(str).str.strip().to_numpy()

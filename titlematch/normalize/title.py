@@ -209,6 +209,8 @@ def _normalize(text: str, corrector) -> NormalizedTitle:
     changes: list[str] = []
     if corrector is not None:
         _correct_spelling(words, corrector, lex, changes)
+        if not changes and len(text) <= _CACHED_LENGTH:  # nothing corrected: the title as written
+            return _normalize_cached(text)
     fields: dict[str, list[str]] = {name: [] for name in QUALIFIER_FIELDS}
     # Rewrite until nothing changes: an expansion can complete a phrase with its neighbour
     # ("male enfermero" -> "male nurse" -> "nurse"), and a key must normalize to itself.
