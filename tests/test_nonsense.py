@@ -16,7 +16,7 @@ from hypothesis import given, settings, strategies as st
 from titlematch.cli import main
 from titlematch.coding.coder import TitleCoder
 from titlematch.coding.gate import answer_kind, residual_codes, scripts_of, title_flags
-from titlematch.confidence.routing import route
+from titlematch.confidence.routing import choose_threshold, gated, route
 
 NON_ANSWERS = ["refused", "Refused", "REFUSED.", "don't know", "Dont know", "DK", "n/a", "N/A", "none", "None",
                "retired", "Retired ", "unemployed", "see above", "same as above", "student", "homemaker",
@@ -92,6 +92,32 @@ def test_short_words_are_not_corrected_by_two_edits(small_demo):
 def test_router_refers_flagged_records_whatever_their_confidence():
     decisions = route([0.999, 0.999, 0.2, float("nan")], 0.5, flags=["", "no dictionary word", "", ""])
     assert decisions.tolist() == ["accept", "refer", "refer", "refer"]
+
+
+def test_threshold_simulation_refers_flagged_records_as_the_router_does(small_demo):
+    # The gold sample's flagged titles count as referred when the threshold is chosen: a flagged record
+    # that would be right at 0.999 must not buy automation the coder will never give.
+    rng = np.random.default_rng(5)
+    conf = rng.uniform(0.5, 1.0, 400)
+    right = rng.uniform(size=400) < conf
+    flags = np.where(np.arange(400) % 4 == 0, "non-answer: 'refused'", "")
+    conf[flags != ""] = 0.999
+    expert = np.where(right, "A", "B")
+    chosen = choose_threshold(gated(conf, flags), ["A"] * 400, expert, min_accuracy=0.8, n_boot=50)
+    accepted = route(conf, chosen.threshold, flags=flags) == "accept"
+    assert not accepted[flags != ""].any()
+    assert chosen.expected_share_automated == pytest.approx(accepted.mean())
+    # and calibrate on the demo's gold sample with non-answers added never counts them as accepted
+    from titlematch.confidence.calibration import calibrate
+    coder = TitleCoder.load(small_demo["dictionary"])
+    gold = pd.read_csv(small_demo["data"] / "gold_2025.csv", dtype=str, keep_default_na=False)[["title", "code"]].head(300)
+    extra = pd.DataFrame({"title": NON_ANSWERS, "code": gold["code"].iloc[0]})
+    result = calibrate(coder, pd.concat([gold, extra], ignore_index=True), min_accuracy=0.9, n_boot=50)
+    flagged = coder.flags(extra)
+    assert (flagged != "").all()
+    n_ok = int(round(result.choice.expected_share_automated * result.choice.n_gold))
+    decisions = route(result.confidence, result.model.threshold_, flags=coder.flags(pd.concat([gold, extra])))
+    assert int((decisions == "accept").sum()) == n_ok
 
 
 def test_scripts_and_answers():

@@ -126,6 +126,8 @@ class TitleIndex:
         parents = dictionary.hierarchy.parent_of(self.codes_)
         self.groups_ = np.array(sorted(set(parents)), dtype=object)
         self.code_group_ = pd.Index(self.groups_).get_indexer(parents).astype(np.int64)
+        self.group_matrix_ = sp.csr_matrix((np.ones(len(parents)), (np.arange(len(parents)), self.code_group_)),
+                                           shape=(len(parents), len(self.groups_)))
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
         key_pos = pd.Index(self.keys_).get_indexer(entries["key"])
@@ -217,7 +219,6 @@ class TitleIndex:
         the costly product).
         """
         out = []
-        n_groups = len(self.groups_)
         if pairs is not None:
             pair_query, pair_code = (np.asarray(p) for p in pairs)
             pair_prob, pair_group = np.zeros(len(pair_query)), np.zeros(len(pair_query))
@@ -226,8 +227,7 @@ class TitleIndex:
         for n, start in enumerate(range(0, len(queries), CHUNK)):
             part = None if contexts is None else contexts[start:start + CHUNK]
             prob = self.classifier_proba(queries[start:start + CHUNK], part)
-            grouped = np.zeros((len(prob), n_groups))
-            np.add.at(grouped.T, self.code_group_, prob.T)
+            grouped = np.asarray(prob @ self.group_matrix_)  # each group's codes summed
             k = min(self.classifier_top, prob.shape[1])
             top = np.argpartition(-prob, k - 1, axis=1)[:, :k]
             rows = np.repeat(np.arange(len(top)), k)

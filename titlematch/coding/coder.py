@@ -238,6 +238,13 @@ class TitleCoder(BaseEstimator):
         at = lookup.get_indexer(pd.MultiIndex.from_arrays([text, keys, corrected]))
         return found[at] if len(text) else np.array([], dtype=object)
 
+    def flags(self, X) -> np.ndarray:
+        """The gate's flag per record of ``X`` (:mod:`titlematch.coding.gate`; empty text: no flag)."""
+        frame = self._as_frame(X)
+        units, unit_of_row, _ = self._units(frame)
+        return self._flags(frame[self.title_col], units["key"].to_numpy(dtype=object)[unit_of_row],
+                           units["corrected"].to_numpy(dtype=object)[unit_of_row])
+
     def predict(self, X) -> np.ndarray:
         frame = self._as_frame(X)
         units, unit_of_row, normalized = self._units(frame)

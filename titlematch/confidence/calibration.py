@@ -23,7 +23,7 @@ from .labels import gold_labels, history_labels, top_candidates
 from ..measures.metrics import brier_score, expected_calibration_error, log_loss, per_major_group, reliability_table
 from ..measures.plots import plot_automation_curve, plot_reliability
 from ..runtime.progress import Stages
-from .routing import DEFAULT_MIN_ACCURACY, choose_threshold
+from .routing import DEFAULT_MIN_ACCURACY, choose_threshold, gated, route
 
 
 @dataclass
@@ -81,12 +81,14 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     correct = (machine == expert).astype(int)
     if min_accuracy is None and manual is None:  # without manual codes there is no "no worse than manual"
         min_accuracy = DEFAULT_MIN_ACCURACY
-    choice = choose_threshold(conf, machine, expert, manual, min_accuracy=min_accuracy, n_boot=n_boot,
+    # the gate's flagged titles are referred whatever their confidence, in the simulation as in production
+    flags = coder.flags(gold) if gold is not None else None
+    choice = choose_threshold(gated(conf, flags), machine, expert, manual, min_accuracy=min_accuracy, n_boot=n_boot,
                               seed=random_state)
     model.threshold_ = float(choice.threshold)
     stages.step("threshold")
     stages.close()
-    accepted = conf >= model.threshold_
+    accepted = route(conf, model.threshold_, flags=flags) == "accept"
     groups = (per_major_group(expert[accepted], machine[accepted], group_of=coder.dictionary_.hierarchy.top_of)
               if accepted.any() else pd.DataFrame())
     report = {

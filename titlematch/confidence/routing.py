@@ -158,11 +158,25 @@ def route(confidence, threshold: float, refer_threshold: float | None = None, *,
                 raise ValueError(f"refer_threshold ({refer_threshold}) must not exceed threshold ({threshold})")
             decision[~(conf >= refer_threshold)] = "no-match"
     if flags is not None:
-        flagged = np.array([bool(f) and f == f for f in flags], dtype=bool)  # f == f: NaN is no flag
-        if len(flagged) != len(decision):
-            raise ValueError(f"flags has {len(flagged)} values for {len(decision)} confidences")
-        decision[flagged & (decision == "accept")] = "refer"
+        decision[flagged(flags, len(decision)) & (decision == "accept")] = "refer"
     return decision
+
+
+def flagged(flags, n: int) -> np.ndarray:
+    """Which records the gate flagged: a non-empty flag (NaN or empty text is no flag)."""
+    out = np.array([bool(f) and f == f for f in flags], dtype=bool)  # f == f: NaN is no flag
+    if len(out) != n:
+        raise ValueError(f"flags has {len(out)} values for {n} confidences")
+    return out
+
+
+def gated(confidence, flags=None) -> np.ndarray:
+    """Confidences as the router sees them: a flagged record's is missing (never accepted at any
+    threshold), so simulating a threshold on a gold sample refers what the coder would refer."""
+    conf = _confidences(confidence).astype(np.float64, copy=True)
+    if flags is not None:
+        conf[flagged(flags, len(conf))] = np.nan
+    return conf
 
 
 def automation_curve(confidence, machine_code, expert_code, manual_code=None, *, grid_size: int = 100) -> pd.DataFrame:

@@ -26,7 +26,8 @@ from . import htmlpage
 from ..measures import metrics
 from ..measures import plots
 from ..io import ROW_COLUMN, InputError, Rejects, require_columns, write_table
-from ..confidence.routing import ThresholdChoice, choose_threshold, read_confidence, route
+from ..coding.gate import FLAG_COLUMN
+from ..confidence.routing import ThresholdChoice, choose_threshold, gated, read_confidence, route
 
 RECORD_ID = "record_id"
 DECISIONS = ("accept", "refer")
@@ -280,7 +281,9 @@ def evaluate(coded: pd.DataFrame, gold: pd.DataFrame, *, min_accuracy: float | N
                           f"{n_bins} equal-width bins; 0 = confidence matches the share right"),
                  _measure("Brier score", metrics.brier_score(right, conf), len(conf), None, "lower is better"),
                  _measure("log loss", metrics.log_loss(right, conf), len(conf), None, "lower is better")]
-        choice = choose_threshold(records["confidence"], machine, expert, records.get("manual_code"),
+        # titles the coder's gate flagged are referred whatever their confidence, here as in the run
+        flags = records[FLAG_COLUMN].fillna("").astype(str) if FLAG_COLUMN in records.columns else None
+        choice = choose_threshold(gated(records["confidence"], flags), machine, expert, records.get("manual_code"),
                                   min_accuracy=min_accuracy, margin=margin, n_boot=n_boot, seed=seed, quiet=quiet)
         rows += _choice_rows(choice, records, n)
     if "decision" in records.columns:
@@ -311,7 +314,8 @@ def _choice_rows(choice: ThresholdChoice, records: pd.DataFrame, n: int) -> list
             _measure("accuracy of accepted records at the threshold", choice.expected_accuracy,
                      int(round(choice.expected_share_automated * n)), None, "")]
     if choice.mix_accuracy == choice.mix_accuracy:
-        accepted = route(records["confidence"], choice.threshold) == "accept"
+        flags = records[FLAG_COLUMN].fillna("").astype(str) if FLAG_COLUMN in records.columns else None
+        accepted = route(records["confidence"], choice.threshold, flags=flags) == "accept"
         mix = np.where(accepted, records["machine_code"], records["manual_code"])
         rows += [_measure("machine + coders accuracy at the threshold", choice.mix_accuracy, n),
                  _measure("machine + coders macro-F1 at the threshold",
