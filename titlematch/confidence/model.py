@@ -30,6 +30,7 @@ from threadpoolctl import threadpool_limits
 
 from ..io.artefact import ArtefactError, load_artefact, save_artefact
 from ..coding.features import FEATURES
+from ..runtime.pool import map_slices
 from .fellegi_sunter import CLIP, FellegiSunterModel
 from .routing import ACCEPT_NOTHING, route
 
@@ -304,16 +305,26 @@ class ConfidenceModel(BaseEstimator):
                              "wrong candidates")
         both, both_y, both_w = np.vstack([M, Mg]), np.concatenate([y, yg]), np.concatenate([w, np.ones(len(yg))])
         folds = list(GroupKFold(n_splits=min(self.n_folds, len(np.unique(gg)))).split(Mg, yg, gg))
+        def fit_one(job):  # (model, fold): out-of-fold scores; (model, None): the model on everything
+            name, k = job
+            if k is None:
+                return _MODELS[name]().fit(both, both_y, both_w).arrays
+            train, test = folds[k]
+            keep = np.concatenate([np.arange(len(y)), len(y) + train])
+            return _MODELS[name]().fit(both[keep], both_y[keep], both_w[keep]).raw(Mg[test])
+
+        # every fit is independent and deterministic: spread over the cores, the same result on any number
+        jobs = [(name, k) for name in self.models for k in [*range(len(folds)), None]]
+        done = dict(zip(jobs, map_slices(fit_one, jobs)))
         self.cv_log_loss_, oof = {}, {}
         for name in self.models:
             raw = np.zeros(len(yg))
-            for train, test in folds:
-                keep = np.concatenate([np.arange(len(y)), len(y) + train])
-                raw[test] = _MODELS[name]().fit(both[keep], both_y[keep], both_w[keep]).raw(Mg[test])
+            for k, (_, test) in enumerate(folds):
+                raw[test] = done[(name, k)]
             oof[name] = raw
             self.cv_log_loss_[name] = float(log_loss(yg, np.clip(expit(raw), 1e-9, 1 - 1e-9)))
         self.base_name_ = min(self.cv_log_loss_, key=self.cv_log_loss_.get)
-        self.base_arrays_ = _MODELS[self.base_name_]().fit(both, both_y, both_w).arrays
+        self.base_arrays_ = done[(self.base_name_, None)]
         raw = self.oof_raw_ = oof[self.base_name_]
         top = _top_rows(gold, raw, gg)
         self.oof_confidence_ = np.zeros(len(yg))
