@@ -11,11 +11,6 @@ SOC_PATTERN = r"^\d{2}-\d{4}(\.\d{2})?$"
 from .levels import SOC_LEVELS  # noqa: F401  (re-exported; defined apart so the command line loads no pandas)
 
 
-def major_group(code: str) -> str:
-    """The SOC major group: the first two digits (``"29-1141"`` -> ``"29"``)."""
-    return str(code)[:2]
-
-
 def to_soc_2018(code: str) -> str:
     """Map an O*NET-SOC code to its SOC 2018 detailed occupation (``"11-1011.03"`` -> ``"11-1011"``).
 

@@ -38,6 +38,7 @@ from unidecode import unidecode
 
 from titlematch.io.lexicon import load_lexicon
 from ._missing import is_missing
+from ._series import as_series
 
 __all__ = [
     "ParsedAddress",
@@ -334,17 +335,9 @@ def parse_address(text: str | None) -> ParsedAddress:
     return _parse_tokens(_street_line(_fold_parts(text)))
 
 
-def _as_series(values: Iterable[object], argument: str) -> pd.Series:
-    if isinstance(values, pd.Series):
-        return values
-    if isinstance(values, (str, bytes)):
-        raise TypeError(f"{argument}: values must be a sequence, not a single string")
-    return pd.Series(list(values), dtype=object)
-
-
 def _map_distinct(values: Iterable[object], argument: str, func, missing):
     """Apply ``func`` once per distinct text; missing values get ``missing``."""
-    series = _as_series(values, argument)
+    series = as_series(values, argument, "parse_address")
     cache: dict[str, object] = {}
     out = []
     for value in series.to_numpy(dtype=object):
@@ -449,7 +442,7 @@ def normalize_postcodes(values: Iterable[object]) -> pd.Series:
         except TypeError:
             return ""
 
-    series = _as_series(values, "normalize_postcodes")
+    series = as_series(values, "normalize_postcodes", "normalize_postcode")
     cache: dict[object, str] = {}
     out = []
     for value in series.to_numpy(dtype=object):

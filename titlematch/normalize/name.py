@@ -42,6 +42,7 @@ from unidecode import unidecode
 
 from titlematch.io.lexicon import load_lexicon
 from ._missing import is_missing
+from ._series import as_series
 
 __all__ = ["NormalizedName", "normalize_name", "normalize_names", "legal_form_table"]
 
@@ -342,16 +343,6 @@ def normalize_name(text: str | None) -> NormalizedName:
     return _normalize_text(text)
 
 
-def _as_series(values: Iterable[object], argument: str) -> pd.Series:
-    if isinstance(values, pd.Series):
-        return values
-    if isinstance(values, (str, bytes)):
-        raise TypeError(f"{argument}: values must be a sequence of strings, not a single string")
-    if isinstance(values, pd.Index):
-        return pd.Series(values, index=values, dtype=object)
-    return pd.Series(list(values), dtype=object)
-
-
 def normalize_names(values: Iterable[object]) -> pd.DataFrame:
     """Normalize many names; each distinct value is normalized once.
 
@@ -372,7 +363,7 @@ def normalize_names(values: Iterable[object]) -> pd.DataFrame:
     >>> normalize_names(["Acme Mfg Co", None])["key"].tolist()
     ['acme manufacturing', '']
     """
-    series = _as_series(values, "normalize_names")
+    series = as_series(values, "normalize_names", "normalize_name")
     results: dict[object, NormalizedName] = {}
     rows = []
     for value in series.to_numpy(dtype=object):

@@ -26,6 +26,7 @@ from itertools import accumulate
 import numpy as np
 import pandas as pd
 
+from ._series import as_series
 from .title_lexicon import COMMA, HYPHEN, SPACE, TitleLexicon, title_lexicon, tokenize
 
 QUALIFIER_FIELDS = ("seniority", "level", "shift", "employment", "branch")
@@ -138,7 +139,7 @@ def normalize_titles(values, *, corrector=None) -> pd.DataFrame:
     0  cook dishwasher    cook  False
     1                            True
     """
-    series = _as_series(values)
+    series = as_series(values, "normalize_titles", "normalize_title")
     _check_corrector(corrector)
     codes, uniques = pd.factorize(series, use_na_sentinel=True)
     found = [_normalize_any(value, corrector) for value in uniques] + [EMPTY]  # last slot: missing values
@@ -168,21 +169,6 @@ def _check_corrector(corrector) -> None:
         raise TypeError(f"corrector must be a SpellingCorrector, got {type(corrector).__name__}")
     if not hasattr(corrector, "vocabulary_"):
         raise ValueError("corrector is not fitted; call corrector.fit(vocabulary) first")
-
-
-def _as_series(values) -> pd.Series:
-    if isinstance(values, pd.DataFrame):
-        raise TypeError("normalize_titles: values must be one column (a Series), got a DataFrame; "
-                        "pass frame['title']")
-    if isinstance(values, (str, bytes)):
-        raise TypeError("normalize_titles: values must be a sequence of titles, got one string; "
-                        "use normalize_title for a single title")
-    if isinstance(values, pd.Series):
-        return values
-    try:
-        return pd.Series(list(values), dtype=object)
-    except TypeError as exc:
-        raise TypeError(f"normalize_titles: values must be a sequence of titles, got {type(values).__name__}") from exc
 
 
 def _normalize_any(value, corrector) -> NormalizedTitle:
