@@ -10,11 +10,12 @@ Features, hashed and then pruned to the ``max_features`` most frequent:
 - character 2-4-grams inside word boundaries, for inflections and spellings (``char_wb``);
 - the context's words, marked as context (``c:``).
 
-Its probabilities are blended half and half with a nearest-centroid (Rocchio) model on the same
-features: the softmax wins with many titles per code, the centroids with a handful (measured on real
-titles, benchmarks/RESULTS.md). Trained on the distinct (title, context, code) units of the dictionary plus the official titles,
-each weighted ``1 + log(records)`` so frequent titles do not drown the rare ones the model is for,
-by minibatch stochastic gradient descent (fixed seed, fixed order: the same model on every run).
+Its probabilities are blended, three parts to one, with a nearest-centroid (Rocchio) model on the
+same features: the softmax wins with many titles per code, the centroids help with a handful; on real
+titles a quarter of centroid beat a half in both regimes (benchmarks/RESULTS.md). Trained on the
+distinct (title, context, code) units of the dictionary plus the official titles, each weighted
+``1 + log(records)`` so frequent titles do not drown the rare ones the model is for, by minibatch
+stochastic gradient descent (fixed seed, fixed order: the same model on every run).
 Weights are kept dense while training (features x codes, float32) and saved sparse (small weights
 dropped), as plain arrays: nothing in the artefact executes.
 """
@@ -60,7 +61,7 @@ class LinearTitleModel:
     """
 
     def __init__(self, max_features: int = 2 ** 16, min_df: int = 1, epochs: int = 10, batch_size: int = 1024,
-                 learning_rate: float = 1.0, alpha: float = 1e-6, prune: float = 1e-3, blend: float = 0.5,
+                 learning_rate: float = 1.0, alpha: float = 1e-6, prune: float = 1e-3, blend: float = 0.25,
                  random_state: int = 0):
         self.blend = blend
         self.max_features = max_features
