@@ -28,6 +28,7 @@ from sklearn.preprocessing import normalize as l2_normalize
 
 HASH_FEATURES = 2 ** 20
 CENTROID_TEMPERATURE = 20.0  # turns centroid cosines into a sharp softmax over codes
+UPDATE_BUDGET = 100_000  # training units seen in all passes together (see LinearTitleModel.epochs_for)
 DENSE_LIMIT = 64_000_000  # weights held dense for prediction up to this many (256 MB of float32)
 _PREPOSITIONS = frozenset("of for in at to with on".split())
 
@@ -55,7 +56,8 @@ class LinearTitleModel:
         Features kept (the most frequent among those in at least ``min_df`` training units).
     min_df : int
         Training units a feature must appear in.
-    epochs, batch_size, learning_rate, alpha : SGD settings; ``alpha`` is the L2 penalty.
+    epochs, batch_size, learning_rate, alpha : SGD settings; ``alpha`` is the L2 penalty; ``epochs`` is the
+        most passes (``epochs_for``: fewer on large dictionaries).
     prune : float
         Weights below this magnitude are dropped when the model is stored.
     """
@@ -130,6 +132,12 @@ class LinearTitleModel:
         self.centroids_ = centroids.T.tocsr().astype(np.float32)
         return self
 
+    def epochs_for(self, n_units: int) -> int:
+        """Passes over ``n_units`` training units: ``epochs``, fewer when the units are many, so that the
+        model sees about ``UPDATE_BUDGET`` units in all (at least two passes). A larger sample needs
+        fewer passes for the same fit, and a 1M-record dictionary then builds in minutes, not tens."""
+        return int(max(2, min(self.epochs, np.ceil(UPDATE_BUDGET / max(n_units, 1)))))
+
     def _sgd(self, X: sp.csr_matrix, y: np.ndarray, w: np.ndarray, n_classes: int) -> None:
         # Adagrad: a step per weight that shrinks with its own gradient history, so rare features
         # (most of a title's words) still move fast while frequent ones settle. The minibatches are
@@ -149,7 +157,7 @@ class LinearTitleModel:
             cols = np.unique(Xb.indices)
             Xs = sp.csr_matrix((Xb.data, np.searchsorted(cols, Xb.indices), Xb.indptr), shape=(len(rows), len(cols)))
             batches.append((rows, cols, Xs, Xs.T.tocsr(), w[rows, None]))
-        for _ in range(self.epochs):
+        for _ in range(self.epochs_for(len(y))):
             for k in rng.permutation(len(batches)):
                 rows, cols, Xs, XsT, wb = batches[k]
                 Wc = W[cols]
