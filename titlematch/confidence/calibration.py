@@ -45,12 +45,20 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     report marks as less reliable.
     """
     stages = Stages(4, "calibrate", quiet)
-    train = history_labels(coder.dictionary_, max_units=max_units, random_state=random_state)
+    feats = gold_labels(coder, gold) if gold is not None else None
+    with_gold = feats is not None and feats["label"].nunique() == 2
+    try:
+        train = history_labels(coder.dictionary_, max_units=max_units, random_state=random_state)
+    except ValueError:
+        if not with_gold:
+            raise
+        # a first year of coding: too few records to hold any out, so the gold sample teaches alone
+        train = feats.iloc[:0].assign(weight=pd.Series(dtype=float))
     stages.step("labels from history")
     model = ConfidenceModel(random_state=random_state)
-    feats = gold_labels(coder, gold) if gold is not None else None
-    if feats is not None and train["label"].nunique() == 2 and feats["label"].nunique() == 2:
-        model.fit_with_gold(train[FEATURES], train["label"], train["record"], train["weight"],
+    if with_gold:
+        history = train if train["label"].nunique() == 2 else train.iloc[:0]  # one-sided history says nothing
+        model.fit_with_gold(history[FEATURES], history["label"], history["record"], history["weight"],
                             feats[FEATURES], feats["label"], feats["record"])
     elif train["label"].nunique() == 2:
         model.fit(train[FEATURES], train["label"], groups=train["record"], sample_weight=train["weight"])
@@ -58,7 +66,7 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
         model.fit_unsupervised(train)
     stages.step(f"model: {model.base_name_}")
     if gold is not None:
-        if model.source_ != "history and gold sample":  # the history alone ranks; gold re-fits the map
+        if not with_gold:  # the history alone ranks (a gold sample of one label); gold re-fits the map
             model.recalibrate(feats[FEATURES], feats["label"], groups=feats["record"])
         feats["confidence"] = consistent(model.oof_confidence_, feats["record"].to_numpy())
         top = top_candidates(feats, len(gold))

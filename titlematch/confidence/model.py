@@ -332,7 +332,7 @@ class ConfidenceModel(BaseEstimator):
             maps = fit_maps(raw[train], yg[train], None, top[train], self.calibration)
             self.oof_confidence_[test] = apply_maps(maps, raw[test], top[test])
         self.calibration_ = fit_maps(raw, yg, None, top, self.calibration)
-        self.source_ = "history and gold sample"
+        self.source_ = "history and gold sample" if len(y) else "gold sample"
         self.threshold_ = self.threshold
         return self
 
