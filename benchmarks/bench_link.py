@@ -120,8 +120,8 @@ def run_titlematch(data: dict, truth: dict[str, str], workers: int, index_dir: s
         index = RegisterIndex.load(index_dir)
         saved_s = time.perf_counter() - built
         built = time.perf_counter()
-    linker = EstablishmentLinker(workers=workers).fit(index, records=data["new"])  # EM on the batch
-    out = linker.link(data["new"])
+    linker = EstablishmentLinker(workers=workers)
+    out = linker.fit_link(index, data["new"])  # EM on the batch's own pairs, scored once
     done = time.perf_counter()
     cpu = cpu_seconds() - cpu
     linked = out[out["decision"] != "no-match"]

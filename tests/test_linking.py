@@ -148,6 +148,24 @@ def test_top_k_matches_a_dense_sort():
         assert sorted(cols[rows == r].tolist()) == sorted(valid)
 
 
+def test_top_k_breaks_ties_to_the_smaller_column_on_either_sort_path():
+    # Reference: Python's sorted() on (-similarity, column) per row; similarities rounding above 1
+    # count as 1. A matrix with 2^40 columns takes the lexsort path, a small one the integer key.
+    from scipy.sparse import csr_matrix
+    from titlematch.linking.blocking import _top_k
+    rng = np.random.default_rng(4)
+    dense = (np.round(rng.random((30, 40)), 1) * (rng.random((30, 40)) < 0.7)).astype(np.float32)
+    dense[0, [3, 7]] = np.float32(1.0000001)
+    dense[0, 5] = 1.0
+    small = csr_matrix(dense)
+    wide = csr_matrix((small.data, small.indices, small.indptr), shape=(30, 2 ** 40))
+    for matrix in (small, wide):
+        rows, cols, _ = _top_k(matrix, 4, 0.2)
+        for r in range(30):
+            expected = sorted((-min(float(v), 1.0), c) for c, v in enumerate(dense[r]) if v >= 0.2)[:4]
+            assert cols[rows == r].tolist() == [c for _, c in expected]
+
+
 def test_blocking_quality_uses_christen_measures():
     # Christen (2012), Data Matching, sec. 7.3: pairs completeness = true links among candidates /
     # all true links; reduction ratio = 1 - candidates / (|A| x |B|).

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -67,6 +68,14 @@ def test_one_core_and_every_core_give_identical_output(data, one_core):
     assert len(linker.candidate_pairs(data["new"])) > len(data["new"])  # the batch had pairs to share out
 
 
+def test_fit_link_scores_once_and_equals_fit_then_link(data, one_core):
+    # Reference: fit(register, records=batch) then link(batch), the batch scored twice.
+    index, expected = one_core
+    linker = EstablishmentLinker(workers=1)
+    pd.testing.assert_frame_equal(linker.fit_link(index, data["new"]), expected)
+    assert hasattr(linker, "model_") and linker.link(data["new"]).equals(expected)
+
+
 def test_partitioned_index_links_identically(tmp_path, data, one_core):
     index, expected = one_core
     index.save(tmp_path / "index", partition_rows=1_000)
@@ -92,6 +101,68 @@ def test_regional_rules_read_only_the_batch_partitions(tmp_path, data, one_core)
     whole = EstablishmentLinker(rules=rules, workers=1).fit(index, records=batch).link(batch)
     pd.testing.assert_frame_equal(EstablishmentLinker(rules=rules, workers=1).fit(loaded, records=batch).link(batch),
                                   whole)
+
+
+def test_streaming_build_writes_the_in_memory_index_file_for_file(tmp_path, data, one_core):
+    # Reference: RegisterIndex.fit on the whole register in memory, then save. The root manifest
+    # holds the SHA-256 of every file, partitions' manifests included, so equal manifests are equal
+    # indexes, byte for byte. Chunks of 700 rows cut partitions and vocabularies unevenly.
+    from titlematch.linking.build import build_index, tfidf_idf
+    from sklearn.feature_extraction.text import TfidfTransformer
+    index, _ = one_core
+    register = data["register"]
+    index.save(tmp_path / "memory", partition_rows=1_000)
+    build_index((register.iloc[a:a + 700] for a in range(0, len(register), 700)), tmp_path / "streamed",
+                partition_rows=1_000, workers=2)
+    assert (tmp_path / "streamed" / "manifest.json").read_bytes() == (tmp_path / "memory" / "manifest.json").read_bytes()
+    assert not (tmp_path / "streamed" / "spill").exists()
+    # The idf formula against scikit-learn's transformer (documents 0-2, terms with df 3, 1, 2).
+    counts = np.array([[1, 0, 2], [1, 1, 0], [3, 0, 1]], dtype=np.float32)
+    expected = TfidfTransformer(smooth_idf=True).fit(counts).idf_
+    assert np.array_equal(tfidf_idf(np.array([3, 1, 2]), 3, expected.dtype), expected)
+
+
+def test_register_command_in_chunks_equals_one_chunk_and_finds_repeated_ids_across_chunks(tmp_path, data, capsys):
+    register = data["register"].head(1_500).copy()
+    register.to_csv(tmp_path / "register.csv", index=False)
+    for chunk_rows in ("400", "100000"):
+        assert main(["register", str(tmp_path / "register.csv"), "--out", str(tmp_path / chunk_rows),
+                     "--chunk-rows", chunk_rows, "--partition-rows", "600", "--quiet"]) == 0
+    assert (tmp_path / "400" / "manifest.json").read_bytes() == (tmp_path / "100000" / "manifest.json").read_bytes()
+    # An id repeated in two chunks (file rows 3 and 1,202: the header is row 1) is refused by its rows.
+    register.iloc[[1200], 0] = register.iloc[1, 0]
+    register.to_csv(tmp_path / "repeated.csv", index=False)
+    capsys.readouterr()
+    assert main(["register", str(tmp_path / "repeated.csv"), "--out", str(tmp_path / "400"), "--chunk-rows", "400",
+                 "--quiet"]) == 2
+    assert re.search(rf"duplicated id.*'{register.iloc[1, 0]}' in rows 3, 1202", capsys.readouterr().err)
+    assert (tmp_path / "400" / "manifest.json").read_bytes() == (tmp_path / "100000" / "manifest.json").read_bytes()
+
+
+def test_regional_blocking_reads_only_the_partitions_of_a_batch_and_links_identically(tmp_path, data, one_core):
+    # Reference: the same regional rules on the index in one piece. The index records which
+    # partitions hold each postcode and place, so one town's records read only that town's partitions.
+    from titlematch.linking.blocking import default_rules, needed_partitions
+    index, _ = one_core
+    index.save(tmp_path / "index", partition_rows=500)
+    loaded = RegisterIndex.load(tmp_path / "index", cache_rows=500)
+    rules = default_rules(loaded.fields_, regional=True)
+    assert {r.name for r in rules} >= {"city + name n-grams", "postcode + name n-grams"}
+    assert "name n-grams" not in {r.name for r in rules} and "house number + street" not in {r.name for r in rules}
+    prepared = loaded.prepare(data["new"])
+    town = data["new"][(prepared["city.value"] == prepared["city.value"].iloc[0]).to_numpy()]
+    needed = needed_partitions(loaded.prepare(town), loaded, rules)
+    assert 0 < len(needed) < loaded.n_partitions
+    assert len(needed_partitions(prepared, loaded, default_rules(loaded.fields_))) == loaded.n_partitions
+    whole = EstablishmentLinker(regional=True, workers=1).fit_link(index, data["new"])
+    read = []
+    original = loaded._store.get
+    loaded._store.get = lambda k: read.append(k) or original(k)
+    pd.testing.assert_frame_equal(EstablishmentLinker(regional=True, workers=1).fit_link(loaded, town),
+                                  EstablishmentLinker(regional=True, workers=1).fit_link(index, town))
+    assert set(read) == set(needed.tolist())
+    pd.testing.assert_frame_equal(EstablishmentLinker(regional=True, workers=2).fit_link(loaded, data["new"]), whole)
+    assert (whole["decision"] == "accept").mean() > 0.8  # regional blocking still links most records
 
 
 def test_missing_or_altered_partition_is_refused_by_name(tmp_path, data, one_core, capsys):

@@ -65,6 +65,11 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                         help="a register entry takes at most one record of the file")
     parser.add_argument("--neighbours", type=int, default=10, help="nearest names per record in blocking")
     parser.add_argument("--max-block", type=int, default=100, help="skip key blocks larger than this")
+    parser.add_argument("--blocking", choices=("default", "regional"), default="default",
+                        help="'regional' keeps every blocking rule inside a postcode or place, so each chunk "
+                             "reads only the index partitions of its postcodes and places (for registers "
+                             "larger than memory); records whose postcode and place are both wrong are then "
+                             "not found (default: 'default', which also searches the whole register)")
     add_workers_argument(parser)
     parser.add_argument("--register-fields", metavar="ROLE=COLUMN,...",
                         help="register column names when they differ from the records' (same syntax as --fields)")
@@ -144,7 +149,8 @@ def run(args) -> int:
     linker = EstablishmentLinker(fields, id_column=args.id_col, record_id=args.record_id,
                                  threshold=args.threshold, refer_threshold=args.refer_threshold,
                                  one_to_one=args.one_to_one, k=args.neighbours, max_block=args.max_block,
-                                 workers=args.workers, output_prefix=args.output_prefix)
+                                 regional=args.blocking == "regional", workers=args.workers,
+                                 output_prefix=args.output_prefix)
     rejects = Rejects()
     if args.dedupe:  # duplicates can be anywhere in the file: it is read whole
         records = read_table(args.file, encoding=args.encoding, rejects=rejects)
@@ -176,7 +182,8 @@ def run(args) -> int:
     options = run_options("link", {"register": args.register, "training": args.training}, fields=args.fields,
                           register_fields=args.register_fields, id_col=args.id_col, threshold=args.threshold,
                           refer_threshold=args.refer_threshold, one_to_one=args.one_to_one,
-                          neighbours=args.neighbours, max_block=args.max_block, output_prefix=args.output_prefix)
+                          neighbours=args.neighbours, max_block=args.max_block, output_prefix=args.output_prefix,
+                          blocking=args.blocking)
     result = run_chunked(args.file, args.out, LinkStep(linker, str(args.file)), options=options,
                          desc="link records", **run_arguments(args))
     # .csv, .parquet or .xlsx, as written

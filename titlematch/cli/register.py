@@ -20,27 +20,41 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     parser.add_argument("--partition-rows", type=int, default=None, metavar="N",
                         help="register records per partition of the index (default 1000000); 'link' reads "
                              "one partition at a time, so the register may be larger than memory")
+    parser.add_argument("--chunk-rows", type=int, default=200_000, metavar="N",
+                        help="register rows read and prepared at a time (default 200000): the index is built "
+                             "without holding the register in memory, and is the same for any N")
     add_common_field_options(parser)
     add_workers_argument(parser)
     return parser
 
 
 def run(args) -> int:
-    from ..io import InputError, Rejects, read_table, rejects_path_for
-    from ..linking.register import RegisterIndex
+    from ..io import InputError, Rejects, TableReader, rejects_path_for
+    from ..linking.build import EmptyRegister, build_index
     from ..runtime.progress import Summary
 
     summary = Summary("register", args.quiet)
     rejects = Rejects()
-    frame = read_table(args.file, required=[args.id_col], encoding=args.encoding, rejects=rejects)
-    if not len(frame):
-        raise InputError(f"{args.file}: no register rows to index (the file has a header only"
-                         f"{' or every row was refused' if len(rejects) else ''})")
     if args.partition_rows is not None and args.partition_rows < 1:
         raise InputError(f"--partition-rows: expected a positive number, got {args.partition_rows}")
-    index = RegisterIndex(_fields(args), args.id_col, workers=args.workers).fit(frame, source=args.file)
-    index.save(args.out, partition_rows=args.partition_rows)
-    summary.set(rows_in=len(frame) + len(rejects.rows()), indexed=len(index), rejected=len(rejects.rows()))
+    if args.chunk_rows < 1:
+        raise InputError(f"--chunk-rows: expected a positive number, got {args.chunk_rows}")
+    reader = TableReader(args.file, chunk_rows=args.chunk_rows, required=[args.id_col], encoding=args.encoding)
+    counted = {"rows": 0}
+
+    def frames():
+        for chunk in reader.chunks():
+            rejects.extend(chunk.rejects)
+            counted["rows"] += len(chunk.frame)
+            yield chunk.frame
+
+    try:
+        build_index(frames(), args.out, fields=_fields(args), id_column=args.id_col,
+                    partition_rows=args.partition_rows, workers=args.workers, source=args.file)
+    except EmptyRegister:
+        raise InputError(f"{args.file}: no register rows to index (the file has a header only"
+                         f"{' or every row was refused' if len(rejects) else ''})") from None
+    summary.set(rows_in=counted["rows"] + len(rejects.rows()), indexed=counted["rows"], rejected=len(rejects.rows()))
     if len(rejects):
         rejects.write(rejects_path_for(args.out.rstrip("/") + ".csv"))
     summary.print()

@@ -20,7 +20,7 @@ Example
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Sequence
 
 import numpy as np
@@ -28,7 +28,7 @@ import pandas as pd
 import scipy.sparse as sp
 from recordlinkage.measures import reduction_ratio
 
-from .partitions import region_columns, region_keys
+from .partitions import region_columns, region_keys, routing_columns
 from .register import Field, RegisterIndex
 
 log = logging.getLogger(__name__)
@@ -58,23 +58,33 @@ class NeighbourRule:
     """Each record's ``k`` nearest register names by character 3-gram TF-IDF cosine (>= ``min_similarity``).
 
     ``within`` restricts neighbours to the same value of a prepared column (e.g. a postcode
-    prefix); records without that value search the whole register.
+    prefix); records without that value search the whole register, or nothing with
+    ``outside=False`` (a rule that never leaves the region reads only the batch's partitions).
     """
 
     name: str
     k: int = 10
     min_similarity: float = 0.3
     within: str | None = None
+    outside: bool = True
 
 
-def default_rules(fields: Sequence[Field], *, k: int = 10) -> list:
+def default_rules(fields: Sequence[Field], *, k: int = 10, regional: bool = False) -> list:
     """The blocking rules implied by the field kinds.
 
     Establishments: the nearest names within the same postcode; the phonetic key of the
     name's first significant word within the same city; rare name words within the same
     city; house number + street name; and the nearest names over the whole register.
     Person records: the phonetic key of each name; each date; each postcode; nearest names.
+
+    ``regional=True`` keeps every rule inside a postcode or a place, so that linking a batch reads
+    only the index partitions holding the batch's postcodes and places (``needed_partitions``):
+    house number + street and the nearest names over the whole register go, the nearest names
+    within the same place come in, and a record without a postcode (place) gets no pairs from the
+    rules within one. A record whose postcode and place are both wrong is then not found.
     """
+    if regional:
+        return _regional(default_rules(fields, k=k), fields, k)
     rules: list = []
     city = next((f for f in fields if f.kind == "city"), None)
     postcode = next((f for f in fields if f.kind == "postcode"), None)
@@ -107,6 +117,24 @@ def default_rules(fields: Sequence[Field], *, k: int = 10) -> list:
     if any(f.kind in ("name", "person_name", "string") for f in fields):
         rules.append(NeighbourRule("name n-grams", k=k))
     return rules
+
+
+def _regional(rules: list, fields: Sequence[Field], k: int) -> list:
+    routable = set(routing_columns(fields))
+    if not routable:
+        raise ValueError("regional blocking needs a postcode or city field")
+    out = []
+    for rule in rules:
+        if isinstance(rule, NeighbourRule):
+            if rule.within in routable:
+                out.append(replace(rule, outside=False))
+        elif isinstance(rule, KeyRule) and routable & set(rule.columns) or \
+                isinstance(rule, TokenRule) and rule.within in routable:
+            out.append(rule)
+    city = next((f for f in fields if f.kind == "city"), None)
+    if city is not None and any(f.kind in ("name", "person_name", "string") for f in fields):
+        out.append(NeighbourRule(f"{city.name} + name n-grams", k=k, within=f"{city.name}.value", outside=False))
+    return out
 
 
 # --------------------------------------------------------------------------- joins
@@ -203,25 +231,34 @@ def _token_hashes(rule: TokenRule, prepared: pd.DataFrame, words: sp.csr_matrix,
     return rows, tokens, pd.util.hash_array(region ^ (tokens.astype(np.uint64) * _MIX))
 
 
-def block_sizes(index: RegisterIndex, rule) -> tuple[np.ndarray, np.ndarray]:
-    """(sorted key hashes, register records per key) of a key or token rule over every partition;
-    kept on the index, so a chunked run counts once."""
+def block_sizes(index: RegisterIndex, rule, partitions=None) -> tuple[np.ndarray, np.ndarray]:
+    """(sorted key hashes, register records per key) of a key or token rule over ``partitions``
+    (default every partition); each partition's count is kept on the index, so a chunked run
+    counts it once. A rule that pairs only within a postcode or place needs only the partitions
+    holding the batch's postcodes or places (``needed_partitions``): every record of a key the
+    batch has is in them, so those keys' counts are exact."""
     cache = index.__dict__.setdefault("_block_sizes", {})
     key = (type(rule).__name__, rule.columns if isinstance(rule, KeyRule) else (rule.within, rule.max_share))
-    if key not in cache:
-        found = []
-        for k in range(index.n_partitions):
-            part = index.partition(k)
+    found = []
+    for k in (range(index.n_partitions) if partitions is None else partitions):
+        if (key, int(k)) not in cache:
+            part = index.partition(int(k))
             if isinstance(rule, KeyRule):
-                found.append(_key_hashes(_register_keys(part, rule.columns))[1])
+                hashes = _key_hashes(_register_keys(part, rule.columns))[1]
             else:
-                found.append(_token_hashes(rule, part.prepared_, part.word_matrix_, _rare_words(rule, index))[2])
-        cache[key] = np.unique(np.concatenate(found) if found else np.empty(0, np.uint64), return_counts=True)
-    return cache[key]
+                hashes = _token_hashes(rule, part.prepared_, part.word_matrix_, _rare_words(rule, index))[2]
+            cache[(key, int(k))] = np.unique(hashes, return_counts=True)
+        found.append(cache[(key, int(k))])
+    if len(found) == 1:
+        return found[0]
+    if not found:
+        return np.empty(0, np.uint64), np.empty(0, np.int64)
+    keys, where = np.unique(np.concatenate([h for h, _ in found]), return_inverse=True)
+    return keys, np.bincount(where, weights=np.concatenate([c for _, c in found]), minlength=len(keys)).astype(np.int64)
 
 
-def _oversized(index: RegisterIndex, rule, hashes: np.ndarray, max_block: int) -> np.ndarray:
-    keys, counts = block_sizes(index, rule)
+def _oversized(index: RegisterIndex, rule, hashes: np.ndarray, max_block: int, partitions=None) -> np.ndarray:
+    keys, counts = block_sizes(index, rule, partitions)
     if not len(keys):
         return np.zeros(len(hashes), dtype=bool)
     at = np.minimum(np.searchsorted(keys, hashes), len(keys) - 1)
@@ -266,18 +303,32 @@ def top_k(similarity: sp.csr_matrix, k: int, min_similarity: float) -> tuple[np.
 
 def _top_k(similarity: sp.csr_matrix, k: int, min_similarity: float):
     similarity = similarity.tocsr()
-    similarity.sort_indices()  # ties then fall to the smaller column, as in best_k
-    rows = np.repeat(np.arange(similarity.shape[0]), np.diff(similarity.indptr))
-    cols, data = similarity.indices, similarity.data
-    keep = data >= min_similarity
-    rows, cols, data = rows[keep], cols[keep], data[keep]
-    # One stable float sort orders by row, then by decreasing similarity (similarities lie in [0, 1];
-    # float32 similarities and row numbers below 2^20 are exact in this float64 key).
-    order = np.argsort(rows.astype(np.float64) * 2.0 + (1.0 - np.clip(data, 0.0, 1.0)), kind="stable")
+    # Entries under the floor go first, before anything is sorted: a product row holds thousands of
+    # weak similarities and keeps a few dozen (no sort of the whole product, no row per entry).
+    kept = np.flatnonzero(similarity.data >= min_similarity)
+    rows = np.searchsorted(similarity.indptr, kept, side="right") - 1
+    cols, data = similarity.indices[kept], similarity.data[kept]
+    order = _row_similarity_column_order(rows, cols, data, similarity.shape)
     rows, cols, data = rows[order], cols[order], data[order]
     first = np.searchsorted(rows, rows, side="left")
     keep = (np.arange(len(rows)) - first) < k
     return rows[keep].astype(np.int64), cols[keep].astype(np.int64), data[keep]
+
+
+_ONE_BITS = 0x3F800000  # the bits of float32 1.0; a non-negative float32's bits order as its value
+
+
+def _row_similarity_column_order(rows: np.ndarray, cols: np.ndarray, data: np.ndarray, shape) -> np.ndarray:
+    """Order by row, then by decreasing similarity (clipped to [0, 1], so rounding above 1 is a
+    tie), then by column: ties fall to the smaller column, as in best_k. One integer sort when
+    row, similarity and column fit 63 bits together (a chunk of rows always does), else lexsort."""
+    clipped = np.clip(data, 0.0, 1.0).astype(np.float32)
+    row_bits, col_bits = int(max(shape[0] - 1, 1)).bit_length(), int(max(shape[1] - 1, 1)).bit_length()
+    if row_bits + 30 + col_bits > 63:
+        return np.lexsort((cols, -clipped, rows))
+    weakness = (_ONE_BITS - clipped.view(np.int32)).astype(np.int64)  # 0 for 1.0, < 2^30
+    key = (rows.astype(np.int64) << (30 + col_bits)) | (weakness << col_bits) | cols.astype(np.int64)
+    return np.argsort(key)
 
 
 def best_k(rows: np.ndarray, cols: np.ndarray, data: np.ndarray, k: int):
@@ -328,7 +379,8 @@ def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_m
     groups = [(np.arange(len(new)), None)]
     if rule.within:
         new_region, register_region = _codes(_keys(new, [rule.within]), _register_keys(part, [rule.within]))
-        groups = [(np.flatnonzero(new_region < 0), None)] + _regions(new_region, register_region)
+        outside = [(np.flatnonzero(new_region < 0), None)] if rule.outside else []
+        groups = outside + _regions(new_region, register_region)
     out_i, out_j, out_s = [], [], []
     for rows, members in groups:
         if not len(rows) or (members is not None and not len(members)):
@@ -351,22 +403,37 @@ def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_m
 # --------------------------------------------------------------------------- the union over partitions
 
 def needed_partitions(new: pd.DataFrame, index: RegisterIndex, rules: Sequence) -> np.ndarray:
-    """The partitions that can hold pairs for ``new``: those of the batch's regions when every rule
-    pairs records of one region only; otherwise every partition (a rule such as the nearest names
-    over the whole register can find a pair anywhere)."""
+    """The partitions that can hold pairs for ``new``.
+
+    A rule reads only the partitions holding the batch's values of a routing column (postcode or
+    place, ``partitions.routing_columns``) when it pairs records with equal values of that column
+    only: a ``KeyRule`` with the column among its ``columns``, a ``TokenRule`` or ``NeighbourRule``
+    ``within`` it (a neighbour rule only with ``outside=False``, or when every record has a value).
+    Any other rule (house number + street anywhere, the nearest names over the whole register)
+    can find a pair anywhere, so then every partition is read.
+    """
     everything = np.arange(index.n_partitions)
-    regional = region_columns(index.fields_)
-    if index.n_partitions == 1 or not regional:
+    if index.n_partitions == 1:
         return everything
+    routable = routing_columns(index.fields_)
+    needed: list[np.ndarray] = []
     for rule in rules:
-        if isinstance(rule, KeyRule) and regional & set(rule.columns):
-            continue
-        if isinstance(rule, TokenRule) and rule.within in regional:
-            continue
-        if isinstance(rule, NeighbourRule) and rule.within in regional and (new[rule.within] != "").all():
-            continue
-        return everything
-    return index.partitions_of_regions(region_keys(new, index.fields_))
+        if isinstance(rule, KeyRule):
+            column = next((c for c in routable if c in rule.columns), None)
+        else:
+            column = rule.within if rule.within in routable else None
+        if column is None:
+            return everything
+        values = new[column].fillna("").astype(str)
+        if isinstance(rule, NeighbourRule) and rule.outside and (values == "").any():
+            return everything  # records without the value search the whole register
+        found = index.partitions_holding(column, values[values != ""].to_numpy(dtype=object))
+        if found is None:  # an index saved before it kept where each value is
+            if column not in region_columns(index.fields_):
+                return everything
+            found = index.partitions_of_regions(region_keys(new, index.fields_))
+        needed.append(found)
+    return np.unique(np.concatenate(needed)) if needed else everything
 
 
 def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
@@ -400,25 +467,26 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
     n_register = len(index)
     keep = index.char_postings_ <= max_postings
     query = blocking_matrix(new_chars, keep)
+    scope = needed_partitions(new, index, rules)
     # What each rule needs about the new records, and which of their keys are over the limit.
     state, skipped = {}, {}
     for rule in rules:
         if isinstance(rule, KeyRule):
             rows, hashes = _key_hashes(_keys(new, rule.columns))
             too_large = np.zeros(len(new), dtype=bool)
-            too_large[rows] = _oversized(index, rule, hashes, rule.max_block or max_block)
+            too_large[rows] = _oversized(index, rule, hashes, rule.max_block or max_block, scope)
             state[rule.name], skipped[rule.name] = too_large, int(too_large.sum())
         elif isinstance(rule, TokenRule):
             rare = _rare_words(rule, index)
             rows, tokens, hashes = _token_hashes(rule, new, new_words, rare)
-            too_large = _oversized(index, rule, hashes, max_block)
+            too_large = _oversized(index, rule, hashes, max_block, scope)
             state[rule.name], skipped[rule.name] = (rare, (rows, tokens, hashes, too_large)), int(too_large.sum())
         elif isinstance(rule, NeighbourRule):
             skipped[rule.name] = 0
         else:
             raise TypeError(f"unknown blocking rule {rule!r}")
     found: dict[str, list] = {rule.name: [] for rule in rules}
-    for p in needed_partitions(new, index, rules):
+    for p in scope:
         part = index.partition(int(p))
         for rule in rules:
             if isinstance(rule, KeyRule):

@@ -162,6 +162,10 @@ class EstablishmentLinker(BaseEstimator):
     one_to_one : bool
         A register entry takes at most one record of a batch (greedy by confidence).
     rules : list of blocking rules, optional (default from the field kinds)
+    regional : bool
+        With the default rules, keep every rule inside a postcode or place
+        (``blocking.default_rules(regional=True)``): a batch then reads only the index partitions
+        of its postcodes and places, at the cost of records whose postcode and place are both wrong.
     k : int
         Nearest names per record in the n-gram neighbour rule.
     max_block : int
@@ -187,7 +191,8 @@ class EstablishmentLinker(BaseEstimator):
 
     def __init__(self, fields=None, *, id_column: str = "register_id", record_id: str | None = None,
                  threshold: float = 0.9, refer_threshold: float = 0.5, one_to_one: bool = False,
-                 rules: Sequence | None = None, k: int = 10, max_block: int = 100, em_candidates: int = 3,
+                 rules: Sequence | None = None, regional: bool = False, k: int = 10, max_block: int = 100,
+                 em_candidates: int = 3,
                  exclusive_em: bool = True, em_records: int = 20_000, workers: int = -1,
                  output_prefix: str = "") -> None:
         self.fields = fields
@@ -197,6 +202,7 @@ class EstablishmentLinker(BaseEstimator):
         self.refer_threshold = refer_threshold
         self.one_to_one = one_to_one
         self.rules = rules
+        self.regional = regional
         self.k = k
         self.max_block = max_block
         self.em_candidates = em_candidates
@@ -235,12 +241,31 @@ class EstablishmentLinker(BaseEstimator):
         else:
             self.index_ = RegisterIndex(self.fields, self.id_column, workers=self.workers).fit(register,
                                                                                            source=source)
-        self.rules_ = list(self.rules) if self.rules is not None else default_rules(self.index_.fields_, k=self.k)
+        self.rules_ = list(self.rules) if self.rules is not None else self._default_rules()
         if training is not None:
             self.model_ = self._fit_supervised(training, records)
         else:
             self.model_ = self._fit_unsupervised(records, records_source)
         return self
+
+    def _default_rules(self) -> list:
+        return default_rules(self.index_.fields_, k=self.k, regional=self.regional)
+
+    def fit_link(self, register: pd.DataFrame | RegisterIndex, records: pd.DataFrame, *,
+                 rejects: Rejects | None = None, source: str = "<register>",
+                 records_source: str = "<records>") -> pd.DataFrame:
+        """``fit(register, records=records).link(records)`` with the records prepared, blocked and
+        compared once instead of twice (as scikit-learn's ``fit_predict``): m and u are estimated by
+        EM on the batch's own candidate pairs, then the same pairs are scored. Same output."""
+        self._validate()
+        if isinstance(register, RegisterIndex):
+            self.index_ = register
+        else:
+            self.index_ = RegisterIndex(self.fields, self.id_column, workers=self.workers).fit(register,
+                                                                                           source=source)
+        self.rules_ = list(self.rules) if self.rules is not None else self._default_rules()
+        result, _ = self._link(records, rejects, records_source, fit=True)
+        return result
 
     def _record_ids(self, frame: pd.DataFrame) -> pd.Series:
         column = self.record_id or ("record_id" if "record_id" in frame.columns else None)
@@ -354,8 +379,12 @@ class EstablishmentLinker(BaseEstimator):
         _, pairs = self._link(records, Rejects(), source)
         return pairs
 
-    def _link(self, records: pd.DataFrame, rejects: Rejects | None, source: str) -> tuple[pd.DataFrame, pd.DataFrame]:
-        if not hasattr(self, "model_"):
+    def _link(self, records: pd.DataFrame, rejects: Rejects | None, source: str,
+              fit: bool = False) -> tuple[pd.DataFrame, pd.DataFrame]:
+        if fit:  # fit_link: EM on this batch's pairs (an empty batch fails as fit would)
+            if not len(self._valid_records(records, Rejects(), source)):
+                self.model_ = self._fit_unsupervised(records, source)
+        elif not hasattr(self, "model_"):
             raise RuntimeError("fit the linker (fit(register, records=...) or fit(register, training)) "
                                "before link(records)")
         self._validate()
@@ -371,6 +400,8 @@ class EstablishmentLinker(BaseEstimator):
                                   "confidence": pd.Series(dtype=float)})
             return add_outputs(valid, empty, prefix=self.output_prefix, source=source), pairs
         _, _, _, pairs, features = self._score_input(valid, source)
+        if fit:
+            self.model_ = self._fit_em(pairs, features, self.index_.fields_)
         outputs, confidence = self._decide(pd.DataFrame(index=valid.index), pairs, features)
         scored = pairs.assign(confidence=confidence)
         scored.attrs["rules"] = pairs.attrs.get("rules", {})
@@ -425,7 +456,7 @@ class EstablishmentLinker(BaseEstimator):
         return result, confidence
 
     # ---------------------------------------------------------------- saving
-    _PARAMS = ("id_column", "record_id", "threshold", "refer_threshold", "one_to_one", "k", "max_block",
+    _PARAMS = ("id_column", "record_id", "threshold", "refer_threshold", "one_to_one", "regional", "k", "max_block",
                "em_candidates", "exclusive_em", "em_records", "workers", "output_prefix")
 
     def save(self, directory: str | os.PathLike, *, index_directory: str | os.PathLike | None = None) -> Path:

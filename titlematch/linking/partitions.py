@@ -90,6 +90,31 @@ def region_columns(fields) -> set[str]:
     return {f"{city.name}.value"} if city is not None else set()
 
 
+def routing_columns(fields) -> list[str]:
+    """Prepared columns whose values the index maps to the partitions holding them (postcode, place):
+    a rule that pairs only records with equal values of one of them reads only those partitions."""
+    out = []
+    for kind in ("postcode", "city"):
+        field = next((f for f in fields if f.kind == kind), None)
+        if field is not None:
+            out.append(f"{field.name}.value")
+    return out
+
+
+def routing_table(prepared: pd.DataFrame, owner: np.ndarray, fields) -> pd.DataFrame:
+    """Distinct (column, value, partition) of the routing columns' non-empty values."""
+    frames = []
+    for column in routing_columns(fields):
+        values = prepared[column].fillna("").astype(str).to_numpy(dtype=object)
+        frame = pd.DataFrame({"column": column, "value": values, "partition": np.asarray(owner, dtype=np.int64)})
+        frames.append(frame[frame["value"] != ""].drop_duplicates())
+    if not frames:
+        return pd.DataFrame({"column": pd.Series(dtype=object), "value": pd.Series(dtype=object),
+                             "partition": pd.Series(dtype=np.int64)})
+    table = pd.concat(frames, ignore_index=True).drop_duplicates()
+    return table.sort_values(["column", "value", "partition"], kind="stable").reset_index(drop=True)
+
+
 def assign_partitions(regions: pd.Series, partitions: int) -> np.ndarray:
     """Partition number of each record: a stable hash of its region; records without one are dealt
     round the partitions by position."""

@@ -34,7 +34,7 @@ from ..normalize.name import normalize_names
 from ..normalize.phonetic import phonetic_keys
 from ..runtime.pool import map_slices, resolve_workers, slices
 from .partitions import (CACHE_ROWS, PARTITION_ROWS, PartitionStore, RegisterPartition, assign_partitions,
-                         csr_from, region_keys)
+                         csr_from, region_keys, routing_table)
 
 log = logging.getLogger(__name__)
 
@@ -336,6 +336,45 @@ def _counts(vectorizer: TfidfVectorizer, values: np.ndarray, workers: int) -> sp
     return sp.vstack(map_slices(lambda rows: count(values[rows]), parts, workers), format="csr")
 
 
+def register_ids(register: pd.DataFrame, id_column: str, source: str, first_row: int = 1
+                 ) -> tuple[pd.Series, pd.Series]:
+    """The register's ids (stripped text) and source rows; an empty or repeated id is an InputError
+    naming its rows. ``first_row`` numbers the rows of a frame without ``_row``."""
+    ids = register[id_column].fillna("").astype(str).str.strip()
+    rows = register[ROW_COLUMN] if ROW_COLUMN in register.columns else pd.Series(
+        np.arange(first_row, first_row + len(register)), index=register.index)
+    empty = ids == ""
+    if empty.any():
+        shown = ", ".join(str(r) for r in rows[empty].head(10))
+        raise InputError(f"{source}: column {id_column!r} is empty in {int(empty.sum())} row(s): "
+                         f"row {shown}; every register record needs an id")
+    duplicated = ids.duplicated(keep=False)
+    if duplicated.any():
+        groups = (pd.DataFrame({"id": ids[duplicated], "row": rows[duplicated].astype(str)})
+                  .groupby("id", sort=False)["row"].agg(", ".join).head(10))
+        shown = "; ".join(f"{i!r} in rows {r}" for i, r in groups.items())
+        raise InputError(f"{source}: column {id_column!r} has {int(ids[duplicated].nunique())} "
+                         f"duplicated id(s): {shown}")
+    return ids, rows
+
+
+def write_index_root(staging: Path, *, id_column: str, fields: Sequence[Field], register: pd.DataFrame,
+                     char_vectorizer: TfidfVectorizer, word_vectorizer: TfidfVectorizer,
+                     char_postings: np.ndarray, word_frequency: np.ndarray, partition_of: np.ndarray,
+                     entries: list[dict], routing: pd.DataFrame) -> None:
+    """Write the index's own files (ids and display columns, vocabularies, idf, postings, the
+    partition of each record and the partitions' checksums) into ``staging``, after its partitions."""
+    arrays = {"char_idf": char_vectorizer.idf_, "word_idf": word_vectorizer.idf_,
+              "char_postings": char_postings, "word_frequency": word_frequency,
+              "partition_of": partition_of.astype(np.int32)}
+    meta = {"id_column": id_column, "fields": [asdict(f) for f in fields], "records": len(register),
+            "partitions": entries}
+    write_artefact(staging, ARTEFACT_KIND,
+                   {"register": register, "char_vocabulary": _vocabulary_table(char_vectorizer),
+                    "word_vocabulary": _vocabulary_table(word_vectorizer), "routing": routing},
+                   arrays=arrays, meta=meta)
+
+
 class RegisterIndex:
     """A business register prepared for linking, whole in memory or in partitions on disk.
 
@@ -372,21 +411,7 @@ class RegisterIndex:
         if not isinstance(register, pd.DataFrame):
             raise TypeError(f"register must be a pandas DataFrame, got {type(register).__name__}")
         require_columns(register, [self.id_column], source)
-        ids = register[self.id_column].fillna("").astype(str).str.strip()
-        rows = register[ROW_COLUMN] if ROW_COLUMN in register.columns else pd.Series(
-            np.arange(1, len(register) + 1), index=register.index)
-        empty = ids == ""
-        if empty.any():
-            shown = ", ".join(str(r) for r in rows[empty].head(10))
-            raise InputError(f"{source}: column {self.id_column!r} is empty in {int(empty.sum())} row(s): "
-                             f"row {shown}; every register record needs an id")
-        duplicated = ids.duplicated(keep=False)
-        if duplicated.any():
-            groups = (pd.DataFrame({"id": ids[duplicated], "row": rows[duplicated].astype(str)})
-                      .groupby("id", sort=False)["row"].agg(", ".join).head(10))
-            shown = "; ".join(f"{i!r} in rows {r}" for i, r in groups.items())
-            raise InputError(f"{source}: column {self.id_column!r} has {int(ids[duplicated].nunique())} "
-                             f"duplicated id(s): {shown}")
+        ids, _ = register_ids(register, self.id_column, source)
         self.fields_ = check_fields(register, resolve_fields(self.fields), source, "register")
         self.ids_ = ids.to_numpy(dtype=object)
         self.display_ = self._display(register)
@@ -431,6 +456,17 @@ class RegisterIndex:
     def preload(self, partitions) -> bool:
         """Read these partitions now if they fit the cache together; True if they are all in memory."""
         return self._store.preload(partitions) if self._store is not None else True
+
+    def partitions_holding(self, column: str, values) -> np.ndarray | None:
+        """The partitions holding register records with these values of a routing column
+        (``partitions.routing_columns``); None when the index cannot tell (saved without the table)."""
+        if self.n_partitions == 1:
+            return np.zeros(1, dtype=np.int64)
+        table = getattr(self, "routing_", None)
+        if table is None or not (table["column"] == column).any():
+            return None
+        rows = table[(table["column"] == column) & table["value"].isin(pd.unique(np.asarray(values, dtype=object)))]
+        return np.unique(rows["partition"].to_numpy(dtype=np.int64))
 
     def partitions_of_regions(self, regions: pd.Series) -> np.ndarray:
         """The partitions holding the register's records of these region keys (see ``region_keys``)."""
@@ -496,15 +532,11 @@ class RegisterIndex:
                 members = np.flatnonzero(owner == k)
                 entries.append({"name": name, "rows": int(len(members)),
                                 "manifest_sha256": whole.take(members, name).write(staging / name)})
-            arrays = {"char_idf": self.char_vectorizer_.idf_, "word_idf": self.word_vectorizer_.idf_,
-                      "char_postings": self.char_postings_, "word_frequency": self.word_frequency_,
-                      "partition_of": owner.astype(np.int32)}
-            meta = {"id_column": self.id_column, "fields": [asdict(f) for f in self.fields_], "records": len(self),
-                    "partitions": entries}
-            write_artefact(staging, ARTEFACT_KIND,
-                           {"register": register, "char_vocabulary": _vocabulary_table(self.char_vectorizer_),
-                            "word_vocabulary": _vocabulary_table(self.word_vectorizer_)},
-                           arrays=arrays, meta=meta)
+            write_index_root(staging, id_column=self.id_column, fields=self.fields_, register=register,
+                             char_vectorizer=self.char_vectorizer_, word_vectorizer=self.word_vectorizer_,
+                             char_postings=self.char_postings_, word_frequency=self.word_frequency_,
+                             partition_of=owner, entries=entries,
+                             routing=routing_table(whole.prepared_, owner, self.fields_))
         return Path(directory)
 
     @classmethod
@@ -528,6 +560,9 @@ class RegisterIndex:
             index.char_postings_ = art.arrays["char_postings"]
             index.word_frequency_ = art.arrays["word_frequency"]
             index.partition_of_ = art.arrays["partition_of"]
+            manifest_files = art.manifest.get("files", {})
+            index.routing_ = art.tables["routing"].astype({"column": str, "value": str}) \
+                if "routing.parquet" in manifest_files else None  # indexes saved before the table
             return index
         # An index saved before partitions existed: one partition, read whole.
         chars, words = csr_from(art.arrays, "char_matrix"), csr_from(art.arrays, "word_matrix")

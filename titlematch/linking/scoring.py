@@ -38,12 +38,13 @@ def pairs_and_features(new: pd.DataFrame, index: RegisterIndex, rules: Sequence,
     if len(parts) <= 1:
         pairs = candidate_pairs(new, index, rules, new_chars=new_chars, new_words=new_words, max_block=max_block)
         return pairs, compare(pairs, new, index, new_chars=new_chars, new_words=new_words, workers=workers)
+    needed = needed_partitions(new, index, rules)
     for rule in rules:  # counted once here, before the fork, instead of once in every worker
         if isinstance(rule, (KeyRule, TokenRule)):
-            block_sizes(index, rule)
+            block_sizes(index, rule, needed)
     # Partitions read here are shared by the forked workers; an index too large for the cache is
     # read by each worker, a partition at a time.
-    index.preload(needed_partitions(new, index, rules))
+    index.preload(needed)
 
     def one(rows: slice):
         records = new.iloc[rows].reset_index(drop=True)
