@@ -109,7 +109,7 @@ def hard_negatives(data: dict) -> set[str]:
 
 
 def run_titlematch(data: dict, truth: dict[str, str], workers: int, index_dir: str | None = None,
-                   partition_rows: int | None = None) -> dict:
+                   partition_rows: int | None = None, regional: bool = False) -> dict:
     start, cpu = time.perf_counter(), cpu_seconds()
     index = RegisterIndex(workers=workers).fit(data["register"])
     built = time.perf_counter()
@@ -120,7 +120,7 @@ def run_titlematch(data: dict, truth: dict[str, str], workers: int, index_dir: s
         index = RegisterIndex.load(index_dir)
         saved_s = time.perf_counter() - built
         built = time.perf_counter()
-    linker = EstablishmentLinker(workers=workers)
+    linker = EstablishmentLinker(workers=workers, regional=regional)
     out = linker.fit_link(index, data["new"])  # EM on the batch's own pairs, scored once
     done = time.perf_counter()
     cpu = cpu_seconds() - cpu
@@ -192,6 +192,8 @@ def main(argv=None) -> int:
     parser.add_argument("--dask", action="store_true",
                         help="with --index-dir: titlematch link with the Dask engine (2 workers) and the local one")
     parser.add_argument("--chunk-rows", type=int, default=50_000, help="records per chunk for the --dask runs")
+    parser.add_argument("--regional", action="store_true",
+                        help="also link with regional blocking (every rule inside a postcode or place)")
     args = parser.parse_args(argv)
     memory = TreeMemory().__enter__()
 
@@ -224,6 +226,13 @@ def main(argv=None) -> int:
           f"{len(negatives & linked_ids):,} (accepted {len(negatives & accepted_ids):,}, referred "
           f"{len(negatives & (linked_ids - accepted_ids)):,})")
 
+    if args.regional:
+        regional = run_titlematch(data, truth, args.workers, args.index_dir, args.partition_rows, regional=True)
+        r, racc, rbq = regional["all"], regional["accepted"], regional["blocking"]
+        print(f"titlematch, regional blocking: index {regional['index_s']:.1f} s, link {regional['link_s']:.1f} s; "
+              f"F1 {r['f1']:.4f} (precision {r['precision']:.4f}, recall {r['recall']:.4f}); accepted precision "
+              f"{racc['precision']:.4f} on {racc['links']:,}, referred {regional['referred']:,}; blocking "
+              f"{rbq['pairs']:,} pairs, pairs completeness {rbq['pairs_completeness']:.4f}")
     if not args.skip_peer:
         total = ours["link_s"] + ours["index_s"]
         peers = [("peer as specified (block city + sorted neighbourhood name; Jaro-Winkler name, address, city, "
