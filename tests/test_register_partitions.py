@@ -107,7 +107,8 @@ def test_streaming_build_writes_the_in_memory_index_file_for_file(tmp_path, data
     # Reference: RegisterIndex.fit on the whole register in memory, then save. The root manifest
     # holds the SHA-256 of every file, partitions' manifests included, so equal manifests are equal
     # indexes, byte for byte. Chunks of 700 rows cut partitions and vocabularies unevenly.
-    from titlematch.linking.build import build_index, tfidf_idf
+    from titlematch.linking.build import build_index
+    from titlematch.linking.tfidf import tfidf_idf
     from sklearn.feature_extraction.text import TfidfTransformer
     index, _ = one_core
     register = data["register"]

@@ -32,10 +32,10 @@ from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 
 from ..io import ROW_COLUMN, InputError
 from ..io.artefact import MANIFEST, staged_directory
-from ..runtime.pool import map_slices, resolve_workers, slices
 from .partitions import PARTITION_ROWS, RegisterPartition, region_keys, routing_table, sha256_of
-from .register import (PARALLEL_ROWS, RegisterIndex, _char_vectorizer, _word_vectorizer, check_fields,
-                       prepare_records, register_ids, resolve_fields, write_index_root)
+from .register import (RegisterIndex, _char_vectorizer, _word_vectorizer, check_fields, prepare_records,
+                       register_ids, resolve_fields, write_index_root)
+from .tfidf import _count_slice, local_counts, remap, tfidf_idf
 
 log = logging.getLogger(__name__)
 
@@ -44,49 +44,6 @@ SPILL = "spill"
 
 class EmptyRegister(InputError):
     """The chunks held no register row."""
-
-
-def tfidf_idf(document_frequency: np.ndarray, n_documents: int, dtype=np.float32) -> np.ndarray:
-    """Smoothed idf as scikit-learn's ``TfidfTransformer.fit`` computes it, operation for operation:
-    ln((1 + n) / (1 + df)) + 1 in ``dtype`` (tests check it against the transformer)."""
-    df = np.asarray(document_frequency).astype(dtype, copy=True)
-    df += 1.0
-    idf = np.full_like(df, fill_value=n_documents + 1, dtype=dtype)
-    idf /= df
-    np.log(idf, out=idf)
-    idf += 1.0
-    return idf
-
-
-def local_counts(make, values: np.ndarray, workers: int = 1) -> tuple[sp.csr_matrix, np.ndarray]:
-    """Raw term counts of ``values`` against their own sorted vocabulary: (counts, terms).
-
-    Counted by ``workers`` processes over slices, each with its slice's vocabulary, then put in the
-    union vocabulary; the result is what one ``CountVectorizer.fit_transform`` gives."""
-    parts = slices(len(values), resolve_workers(workers), PARALLEL_ROWS)
-    done = map_slices(lambda rows: _count_slice(make, values[rows]), parts, workers)
-    if len(done) == 1:
-        return done[0]
-    terms = np.unique(np.concatenate([t for _, t in done]))
-    return sp.vstack([remap(c, t, terms) for c, t in done], format="csr"), terms
-
-
-def _count_slice(make, values: np.ndarray) -> tuple[sp.csr_matrix, np.ndarray]:
-    vectorizer = make()
-    if not any(values != ""):  # no text, no vocabulary (scikit-learn refuses an empty one)
-        return sp.csr_matrix((len(values), 0), dtype=vectorizer.dtype), np.empty(0, dtype=str)
-    counts = super(TfidfVectorizer, vectorizer).fit_transform(values).tocsr()  # CountVectorizer's counts
-    counts.sort_indices()  # fit renumbers the terms in sorted order without re-sorting each row
-    terms = np.asarray(vectorizer.get_feature_names_out(), dtype=str)
-    return counts, terms
-
-
-def remap(counts: sp.csr_matrix, terms: np.ndarray, vocabulary: np.ndarray) -> sp.csr_matrix:
-    """``counts`` over sorted ``terms`` as columns of the sorted ``vocabulary`` (a superset): the
-    mapping is increasing, so each row's columns stay sorted."""
-    where = np.searchsorted(vocabulary, terms).astype(counts.indices.dtype)
-    return sp.csr_matrix((counts.data, where[counts.indices], counts.indptr),
-                         shape=(counts.shape[0], len(vocabulary)))
 
 
 class _Vocabulary:

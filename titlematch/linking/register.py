@@ -33,6 +33,7 @@ from ..normalize.address import normalize_addresses, normalize_postcodes
 from ..normalize.name import normalize_names
 from ..normalize.phonetic import phonetic_keys
 from ..runtime.pool import map_slices, resolve_workers, slices
+from .tfidf import PARALLEL_ROWS, local_counts
 from .partitions import (CACHE_ROWS, PARTITION_ROWS, PartitionStore, RegisterPartition, assign_partitions,
                          csr_from, region_keys, routing_table)
 
@@ -210,7 +211,6 @@ _PREPARERS = {"name": _prepare_name, "address": _prepare_address, "city": _prepa
               "string": _prepare_text, "number": _prepare_digits, "date": _prepare_digits, "exact": _prepare_text}
 
 
-PARALLEL_ROWS = 2_000  # fewer rows per process than this are not worth a fork
 
 
 def prepare_records(frame: pd.DataFrame, fields: Sequence[Field], *, side: str = "new",
@@ -303,37 +303,22 @@ def _restore_vectorizer(make, table: pd.DataFrame, idf: np.ndarray) -> TfidfVect
 def fit_tfidf(make, text: pd.Series, nonempty: np.ndarray, workers: int = 1) -> tuple[TfidfVectorizer, sp.csr_matrix]:
     """``make()`` fitted on the non-empty texts, and the TF-IDF rows of every text.
 
-    The same vocabulary, idf and rows as ``TfidfVectorizer.fit`` then ``transform`` in one process
-    (scikit-learn numbers a fitted vocabulary's terms in sorted order, and the counts are the same
-    whoever counts them), but the n-grams are found and counted by ``workers`` processes.
+    The same vocabulary, idf and rows as ``TfidfVectorizer.fit`` then ``transform`` in one process,
+    but the n-grams are found and counted once, by ``workers`` processes (``tfidf.local_counts``).
     """
     values = text.fillna("").astype(str).to_numpy(dtype=object)
+    counts, terms = local_counts(make, values, workers)  # empty texts add no term
     fit_rows = np.flatnonzero(nonempty)
-    fit_values = values[fit_rows] if len(fit_rows) else np.asarray(["_"], dtype=object)  # an all-empty register
-    n = resolve_workers(workers)
-    analyze = make().build_analyzer()
-
-    def terms(rows: slice) -> set:
-        found: set = set()
-        for value in fit_values[rows]:
-            found.update(analyze(value))
-        return found
-
-    found = map_slices(terms, slices(len(fit_values), n, PARALLEL_ROWS), workers)
-    vectorizer = make({term: k for k, term in enumerate(sorted(set().union(*found)))})
-    counts = _counts(vectorizer, values, workers)
-    fit_counts = counts[fit_rows] if len(fit_rows) else _counts(vectorizer, fit_values, 1)
+    if len(fit_rows):
+        fit_counts = counts[fit_rows]
+    else:  # an all-empty register: the vocabulary of "_", so that the models still exist
+        fit_counts, terms = local_counts(make, np.asarray(["_"], dtype=object), 1)
+        counts = sp.csr_matrix((len(values), len(terms)), dtype=counts.dtype)
+    vectorizer = make({term: k for k, term in enumerate(terms.tolist())})
     transformer = TfidfTransformer(norm=vectorizer.norm, use_idf=True, smooth_idf=vectorizer.smooth_idf,
                                    sublinear_tf=vectorizer.sublinear_tf).fit(fit_counts)
     vectorizer.idf_ = transformer.idf_
     return vectorizer, transformer.transform(counts).tocsr()
-
-
-def _counts(vectorizer: TfidfVectorizer, values: np.ndarray, workers: int) -> sp.csr_matrix:
-    """Raw term counts (what TfidfVectorizer weighs), counted by ``workers`` processes over slices."""
-    count = super(TfidfVectorizer, vectorizer).transform
-    parts = slices(len(values), resolve_workers(workers), PARALLEL_ROWS)
-    return sp.vstack(map_slices(lambda rows: count(values[rows]), parts, workers), format="csr")
 
 
 def register_ids(register: pd.DataFrame, id_column: str, source: str, first_row: int = 1
