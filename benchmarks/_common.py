@@ -53,3 +53,22 @@ def table(rows: list[tuple], header: tuple) -> str:
     widths = [max(len(str(r[i])) for r in rows + [header]) for i in range(len(header))]
     line = lambda r: "  ".join(str(v).ljust(w) for v, w in zip(r, widths))
     return "\n".join([line(header), line(tuple("-" * w for w in widths))] + [line(r) for r in rows])
+
+
+class TreeMemory(PeakMemory):
+    """Peak memory of this process and its children, sampled every ``interval`` seconds: this
+    process's resident set plus each child's unique set (forked workers share the parent's pages)."""
+
+    def __init__(self, interval: float = 0.5):
+        super().__init__(interval)
+
+    def sample(self) -> int:
+        import psutil
+        me = psutil.Process()
+        total = me.memory_info().rss
+        for child in me.children(recursive=True):
+            try:
+                total += child.memory_full_info().uss
+            except (psutil.Error, OSError):
+                pass
+        return total

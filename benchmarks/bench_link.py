@@ -49,7 +49,7 @@ from titlematch.datasets.scenario import make_register_scenario
 from titlematch.runtime.pool import resolve_workers
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _common import PeakMemory  # noqa: E402
+from _common import TreeMemory  # noqa: E402
 
 
 def cpu_seconds() -> float:
@@ -60,25 +60,6 @@ def cpu_seconds() -> float:
 
 def peak_rss_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux reports KiB
-
-
-class TreeMemory(PeakMemory):
-    """Peak memory of this process and its children, sampled every ``interval`` seconds: this
-    process's resident set plus each child's unique set (forked workers share the parent's pages)."""
-
-    def __init__(self, interval: float = 0.5):
-        super().__init__(interval)
-
-    def sample(self) -> int:
-        import psutil
-        me = psutil.Process()
-        total = me.memory_info().rss
-        for child in me.children(recursive=True):
-            try:
-                total += child.memory_full_info().uss
-            except (psutil.Error, OSError):
-                pass
-        return total
 
 
 def limit_pairs_per_second(out_pairs: pd.DataFrame, index: RegisterIndex, new_prepared: pd.DataFrame) -> float:

@@ -27,27 +27,9 @@ from pathlib import Path
 import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).parent))
-from _common import PeakMemory  # noqa: E402
+from _common import TreeMemory  # noqa: E402
 
 ROOT = str(Path(__file__).resolve().parent.parent)
-
-
-class TreeMemory(PeakMemory):
-    """This process's resident set plus the unique set of every descendant."""
-
-    def __init__(self, interval: float = 0.5):
-        super().__init__(interval)
-
-    def sample(self) -> int:
-        import psutil
-        me = psutil.Process()
-        total = me.memory_info().rss
-        for child in me.children(recursive=True):
-            try:
-                total += child.memory_full_info().uss
-            except (psutil.Error, OSError):
-                pass
-        return total
 
 
 def write_files(directory: Path, register_rows: int, new: int, seed: int) -> None:

@@ -236,17 +236,21 @@ class EstablishmentLinker(BaseEstimator):
         if training is None and records is None:
             raise ValueError("without training pairs, give records= (records to link, or a sample of them): "
                              "m and u are estimated by EM on their candidate pairs")
+        self._set_index(register, source)
+        if training is not None:
+            self.model_ = self._fit_supervised(training, records)
+        else:
+            self.model_ = self._fit_unsupervised(records, records_source)
+        return self
+
+    def _set_index(self, register: pd.DataFrame | RegisterIndex, source: str) -> None:
+        """``index_`` (the given index, or one built from the register) and the blocking rules over it."""
         if isinstance(register, RegisterIndex):
             self.index_ = register
         else:
             self.index_ = RegisterIndex(self.fields, self.id_column, workers=self.workers).fit(register,
                                                                                            source=source)
         self.rules_ = list(self.rules) if self.rules is not None else self._default_rules()
-        if training is not None:
-            self.model_ = self._fit_supervised(training, records)
-        else:
-            self.model_ = self._fit_unsupervised(records, records_source)
-        return self
 
     def _default_rules(self) -> list:
         return default_rules(self.index_.fields_, k=self.k, regional=self.regional)
@@ -258,12 +262,7 @@ class EstablishmentLinker(BaseEstimator):
         compared once instead of twice (as scikit-learn's ``fit_predict``): m and u are estimated by
         EM on the batch's own candidate pairs, then the same pairs are scored. Same output."""
         self._validate()
-        if isinstance(register, RegisterIndex):
-            self.index_ = register
-        else:
-            self.index_ = RegisterIndex(self.fields, self.id_column, workers=self.workers).fit(register,
-                                                                                           source=source)
-        self.rules_ = list(self.rules) if self.rules is not None else self._default_rules()
+        self._set_index(register, source)
         result, _ = self._link(records, rejects, records_source, fit=True)
         return result
 
