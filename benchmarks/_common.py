@@ -8,6 +8,11 @@ from contextlib import contextmanager
 
 import psutil
 
+# The titlematch command turns off numpy's huge-page advice (titlematch/cli/__init__.py says why); the
+# benchmarks set it for the whole process, so the peers run under the same setting as titlematch.
+# Import this module before numpy.
+os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
+
 
 class PeakMemory:
     """Samples this process's resident memory in a thread; ``peak_mb`` after the block.

@@ -14,6 +14,7 @@ import sys
 import time
 from pathlib import Path
 
+import _common  # noqa: F401  (first: the same numpy memory setting for titlematch and its peer)
 import numpy as np
 import pandas as pd
 from sklearn.feature_extraction.text import TfidfVectorizer

@@ -12,6 +12,7 @@ import sys
 import time
 from pathlib import Path
 
+import _common  # noqa: F401  (first: the same numpy memory setting for titlematch and its peer)
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).parent))

@@ -39,6 +39,7 @@ import tempfile
 import time
 from pathlib import Path
 
+import _common  # noqa: F401  (first: the same numpy memory setting for titlematch and its peer)
 import numpy as np
 import pandas as pd
 

@@ -16,6 +16,7 @@ import argparse
 import time
 from collections import Counter
 
+import _common  # noqa: F401  (first: the same numpy memory setting for titlematch and its peer)
 import numpy as np
 import pandas as pd
 

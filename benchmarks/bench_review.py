@@ -29,6 +29,7 @@ import threading
 import time
 from pathlib import Path
 
+import _common  # noqa: F401  (first: the same numpy memory setting for titlematch and its peer)
 import numpy as np
 import pandas as pd
 from rapidfuzz import fuzz, process

@@ -17,6 +17,7 @@ import argparse
 from collections import Counter
 from pathlib import Path
 
+import _common  # noqa: F401  (first: the same numpy memory setting for titlematch and its peer)
 import numpy as np
 import pandas as pd
 

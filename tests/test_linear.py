@@ -63,3 +63,16 @@ def test_passes_shrink_as_the_training_units_grow():
     assert model.epochs_for(10_000_000) == 2                  # never fewer than two passes
     for n in (12_000, 40_000, 80_000):
         assert UPDATE_BUDGET <= model.epochs_for(n) * n < UPDATE_BUDGET + n
+
+
+def test_the_same_model_on_one_thread_or_several(monkeypatch):
+    # each SGD step is cut into fixed slices: the thread count must not change a single weight
+    import titlematch.coding.linear as linear
+    codes, keys, y = _craft_titles()
+    past = keys["past"]
+    monkeypatch.setattr(linear, "available_cores", lambda: 1)
+    one = LinearTitleModel().fit(past, [""] * len(past), y["past"], len(codes))
+    monkeypatch.setattr(linear, "available_cores", lambda: 4)
+    many = LinearTitleModel().fit(past, [""] * len(past), y["past"], len(codes))
+    for name, array in one.arrays().items():
+        np.testing.assert_array_equal(array, many.arrays()[name], err_msg=name)

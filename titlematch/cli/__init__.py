@@ -11,8 +11,15 @@ from __future__ import annotations
 import argparse
 import importlib
 import logging
+import os
 import pkgutil
 import sys
+
+# Numpy asks the kernel for 2 MB pages for every large array unless told not to. On virtual machines
+# whose free memory is handed back to the host, each fresh 2 MB page then costs milliseconds: an
+# 80 MB temporary took 1.4 s to touch, against 0.09 s in 4 kB pages (benchmarks/RESULTS.md, "Memory
+# pages"). Set before numpy is imported; a value the user set is kept.
+os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
 
 from .. import __version__
 
