@@ -15,7 +15,8 @@ same features: the softmax wins with many titles per code, the centroids help wi
 titles a quarter of centroid beat a half in both regimes (benchmarks/RESULTS.md). Trained on the
 distinct (title, context, code) units of the dictionary plus the official titles, each weighted
 ``1 + log(records)`` so frequent titles do not drown the rare ones the model is for, by minibatch
-stochastic gradient descent (fixed seed, fixed order: the same model on every run).
+stochastic gradient descent (Adagrad, fixed seed, fixed order: the same model on every run) with a
+sparse gradient: each title pushes down only the codes it finds likeliest.
 Weights are kept dense while training (features x codes, float32) and saved sparse (small weights
 dropped), as plain arrays: nothing in the artefact executes.
 """
@@ -65,12 +66,15 @@ class LinearTitleModel:
         most passes (``epochs_for``: fewer on large dictionaries).
     prune : float
         Weights below this magnitude are dropped when the model is stored.
+    gradient_top : int
+        Codes each training title pushes down per step: its likeliest wrong ones (see ``_sgd``).
     """
 
     def __init__(self, max_features: int = 2 ** 16, min_df: int = 1, epochs: int = 10, batch_size: int = 1024,
                  learning_rate: float = 1.0, alpha: float = 1e-6, prune: float = 1e-3, blend: float = 0.25,
-                 random_state: int = 0):
+                 gradient_top: int = 10, random_state: int = 0):
         self.blend = blend
+        self.gradient_top = gradient_top
         self.max_features = max_features
         self.min_df = min_df
         self.epochs = epochs
@@ -146,80 +150,76 @@ class LinearTitleModel:
     def _sgd(self, X: sp.csr_matrix, y: np.ndarray, w: np.ndarray, n_classes: int) -> None:
         # Adagrad: a step per weight that shrinks with its own gradient history, so rare features
         # (most of a title's words) still move fast while frequent ones settle. The minibatches are
-        # drawn once and visited in a new random order each epoch: each batch's own columns and its
-        # transpose are then computed once, not once per epoch (same accuracy on real titles, faster).
+        # drawn once and visited in a new random order each epoch.
+        # The gradient is kept sparse: each title pushes up its own code and down only the
+        # ``gradient_top`` codes it finds likeliest, the rest having probabilities too small to matter.
+        # On real titles this codes as well as the full gradient (ESCO dev half, linear model alone,
+        # four seeds: 0.793 both; with two titles per code 0.330 against 0.333), trains faster, and
+        # leaves a fifth of the weights, so the model is smaller on disk and quicker to load.
         # Each step is cut into SGD_PARTS fixed slices (of the batch's rows for the scores, of its
         # features for the update) run on threads: the arithmetic per slice does not depend on the
-        # number of threads, so the model is the same on one core or many. Buffers are reused, since
-        # a fresh 10 MB temporary per step costs more in page faults than the arithmetic.
+        # number of threads, so the model is the same on one core or many.
         rng = np.random.default_rng(self.random_state)
         W = np.zeros((X.shape[1], n_classes), dtype=np.float32)
         acc = np.full((X.shape[1], n_classes), 1e-6, dtype=np.float32)
+        W_flat, acc_flat = W.reshape(-1), acc.reshape(-1)
         b = np.zeros(n_classes, dtype=np.float32)
         acc_b = np.full(n_classes, 1e-6, dtype=np.float32)
-        w = w / w.mean()
+        w = (w / w.mean()).astype(np.float32)
         order = rng.permutation(len(y))
         batches = []
         for start in range(0, len(y), self.batch_size):
             rows = np.sort(order[start:start + self.batch_size])
             Xb = X[rows]
             cols = np.unique(Xb.indices)
-            Xs = sp.csr_matrix((Xb.data, np.searchsorted(cols, Xb.indices), Xb.indptr), shape=(len(rows), len(cols)))
-            XsT = Xs.T.tocsr()
-            row_parts = [(part, Xs[part]) for part in slices(len(rows), SGD_PARTS)]
+            XsT = sp.csr_matrix((Xb.data, np.searchsorted(cols, Xb.indices), Xb.indptr),
+                                shape=(len(rows), len(cols))).T.tocsr()
+            row_parts = [(part, Xb[part]) for part in slices(len(rows), SGD_PARTS)]
             col_parts = [(part, XsT[part]) for part in slices(len(cols), SGD_PARTS)]
-            batches.append((rows, cols, row_parts, col_parts, w[rows, None], y[rows]))
-        widest = max(len(batch[1]) for batch in batches)
-        Wc_buf, ac_buf, tmp_buf = (np.empty((widest, n_classes), dtype=np.float32) for _ in range(3))
+            batches.append((rows, cols, row_parts, col_parts, w[rows], y[rows]))
         lr, alpha = np.float32(self.learning_rate), np.float32(self.alpha)
+        k = min(self.gradient_top, n_classes)
         threads = 1 if in_worker() else min(SGD_PARTS, available_cores())
         with ThreadPoolExecutor(threads) as executor:
-            run = (lambda f, parts: list(executor.map(f, parts))) if threads > 1 else \
-                (lambda f, parts: [f(p) for p in parts])
+            def run(f, parts):
+                return list(executor.map(f, parts)) if threads > 1 else [f(p) for p in parts]
+
             for _ in range(self.epochs_for(len(y))):
-                for k in rng.permutation(len(batches)):
-                    rows, cols, row_parts, col_parts, wb, yb = batches[k]
-                    n = len(cols)
-                    Wc, ac, tmp = Wc_buf[:n], ac_buf[:n], tmp_buf[:n]
+                for kb in rng.permutation(len(batches)):
+                    rows, cols, row_parts, col_parts, wb, yb = batches[kb]
                     P = np.empty((len(rows), n_classes), dtype=np.float32)
 
-                    def gather(part):
-                        sl, _ = part
-                        np.take(W, cols[sl], axis=0, out=Wc[sl])
-                        np.take(acc, cols[sl], axis=0, out=ac[sl])
-
-                    def softmax_gradient(part):  # the loss's gradient in the scores, rows sl
+                    def probabilities(part):
                         sl, Xp = part
-                        scores = Xp @ Wc
+                        scores = Xp @ W
                         scores += b
-                        scores -= scores.max(axis=1, keepdims=True)
-                        np.exp(scores, out=scores)
-                        scores /= scores.sum(axis=1, keepdims=True)
-                        scores[np.arange(len(scores)), yb[sl]] -= 1.0
-                        scores *= wb[sl]
-                        P[sl] = scores
+                        P[sl] = _softmax(scores)
 
-                    def update(part):  # Adagrad on the batch's features sl
+                    run(probabilities, row_parts)
+                    top = np.argpartition(-P, k - 1, axis=1)[:, :k]
+                    values = np.take_along_axis(P, top, axis=1) * wb[:, None]
+                    n = len(rows)
+                    G = sp.csr_matrix((np.concatenate([values.ravel(), -wb]),
+                                       (np.concatenate([np.repeat(np.arange(n), k), np.arange(n)]),
+                                        np.concatenate([top.ravel(), yb]))), shape=(n, n_classes))
+
+                    def update(part):  # Adagrad on the weights of the batch's features sl
                         sl, XpT = part
-                        grad = XpT @ P
-                        t = np.multiply(Wc[sl], alpha, out=tmp[sl])
-                        grad += t
-                        a = ac[sl]
-                        a += np.multiply(grad, grad, out=t)
-                        acc[cols[sl]] = a
-                        np.sqrt(a, out=t)
-                        np.divide(lr, t, out=t)
-                        grad *= t
-                        wc = Wc[sl]
-                        wc -= grad
-                        W[cols[sl]] = wc
+                        grad = (XpT @ G).tocoo()
+                        at = (cols[sl][grad.row].astype(np.int64) * n_classes) + grad.col
+                        g = grad.data.astype(np.float32)
+                        weights = W_flat[at]
+                        g += alpha * weights
+                        a = acc_flat[at] + g * g
+                        acc_flat[at] = a
+                        weights -= lr * g / np.sqrt(a)
+                        W_flat[at] = weights
 
-                    run(gather, col_parts)
-                    run(softmax_gradient, row_parts)
                     run(update, col_parts)
-                    gb = P.sum(axis=0)
+                    P[np.arange(n), yb] -= 1.0
+                    gb = (P * wb[:, None]).sum(axis=0)
                     acc_b += gb * gb
-                    b -= self.learning_rate * gb / np.sqrt(acc_b)
+                    b -= lr * gb / np.sqrt(acc_b)
         keep = np.abs(W) >= self.prune
         self.coef_ = sp.csr_matrix((W[keep], np.nonzero(keep)[1].astype(np.int32),
                                     np.concatenate([[0], np.cumsum(keep.sum(axis=1))]).astype(np.int64)),
@@ -260,7 +260,7 @@ class LinearTitleModel:
     def params(self) -> dict:
         return {"max_features": self.max_features, "min_df": self.min_df, "epochs": self.epochs,
                 "batch_size": self.batch_size, "learning_rate": self.learning_rate, "alpha": self.alpha,
-                "prune": self.prune, "blend": self.blend, "random_state": self.random_state}
+                "prune": self.prune, "blend": self.blend, "gradient_top": self.gradient_top, "random_state": self.random_state}
 
     @classmethod
     def restore(cls, arrays: dict, params: dict, prefix: str = "linear_") -> "LinearTitleModel":
