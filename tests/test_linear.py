@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 from sklearn.linear_model import LogisticRegression
 
 from titlematch.coding.linear import UPDATE_BUDGET, LinearTitleModel
@@ -65,9 +66,11 @@ def test_passes_shrink_as_the_training_units_grow():
         assert UPDATE_BUDGET <= model.epochs_for(n) * n < UPDATE_BUDGET + n
 
 
-def test_the_same_model_on_one_thread_or_several(monkeypatch):
+@pytest.mark.parametrize("units_per_code", [0, 10 ** 6])  # the sparse gradient, then the full one
+def test_the_same_model_on_one_thread_or_several(monkeypatch, units_per_code):
     # each SGD step is cut into fixed slices: the thread count must not change a single weight
     import titlematch.coding.linear as linear
+    monkeypatch.setattr(linear, "FULL_GRADIENT_UNITS", units_per_code)
     codes, keys, y = _craft_titles()
     past = keys["past"]
     monkeypatch.setattr(linear, "available_cores", lambda: 1)
@@ -76,3 +79,10 @@ def test_the_same_model_on_one_thread_or_several(monkeypatch):
     many = LinearTitleModel().fit(past, [""] * len(past), y["past"], len(codes))
     for name, array in one.arrays().items():
         np.testing.assert_array_equal(array, many.arrays()[name], err_msg=name)
+
+
+def test_every_code_is_in_the_gradient_when_codes_have_few_titles():
+    model = LinearTitleModel(gradient_top=10)
+    assert model.gradient_codes(2_000, 436) == 436      # under 8 titles per code: the full gradient
+    assert model.gradient_codes(9_000, 436) == 10       # ESCO's dev half, 21 per code: the ten likeliest
+    assert model.gradient_codes(100_000, 5) == 5        # never more codes than the classification has
