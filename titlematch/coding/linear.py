@@ -197,18 +197,20 @@ class LinearTitleModel:
             for _ in range(self.epochs_for(len(y))):
                 for kb in rng.permutation(len(batches)):
                     rows, cols, row_parts, col_parts, wb, yb = batches[kb]
-                    P = np.empty((len(rows), n_classes), dtype=np.float32)
+                    n = len(rows)
+                    P = np.empty((n, n_classes), dtype=np.float32)
+                    top = np.empty((n, min(k, n_classes)), dtype=np.int64)
 
-                    def probabilities(part):
+                    def probabilities(part):  # and each title's k likeliest codes, on the same thread
                         sl, Xp = part
                         scores = Xp @ W
                         scores += b
                         P[sl] = _softmax(scores)
+                        if k < n_classes:
+                            top[sl] = np.argpartition(-P[sl], k - 1, axis=1)[:, :k]
 
                     run(probabilities, row_parts)
-                    n = len(rows)
                     if k < n_classes:
-                        top = np.argpartition(-P, k - 1, axis=1)[:, :k]
                         values = np.take_along_axis(P, top, axis=1) * wb[:, None]
                         G = sp.csr_matrix((np.concatenate([values.ravel(), -wb]),
                                            (np.concatenate([np.repeat(np.arange(n), k), np.arange(n)]),
