@@ -95,6 +95,10 @@ def test_save_load_round_trip_codes_identically(tmp_path):
     manifest = json.loads((tmp_path / "dict" / "manifest.json").read_text())
     assert manifest["kind"] == "title-dictionary" and manifest["meta"]["rows"]["in"] == 5
     assert all(len(f["sha256"]) == 64 for f in manifest["files"].values())
+    # the dictionary keys' similarity matrices are stored, not transformed again on loading: same matrices
+    assert {"index_char_matrix_data.npy", "index_word_matrix_data.npy"} <= set(manifest["files"])
+    for name in ("char_matrix_", "word_matrix_"):
+        assert (getattr(coder.index_, name) != getattr(again.index_, name)).nnz == 0
 
 
 def test_tampered_table_is_refused_naming_the_file(tmp_path):

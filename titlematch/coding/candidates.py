@@ -15,7 +15,7 @@ import pandas as pd
 import scipy.sparse as sp
 from sklearn.feature_extraction.text import TfidfVectorizer
 
-from ..io.artefact import ArtefactError
+from ..io.artefact import ArtefactError, csr_arrays, csr_from
 from .dictionary import TitleDictionary
 from .linear import LinearTitleModel
 from ..normalize.spelling import SpellingCorrector
@@ -165,7 +165,8 @@ class TitleIndex:
 
     def arrays(self) -> dict[str, np.ndarray]:
         return {"index_char_idf": self.char_vectorizer_.idf_, "index_word_idf": self.word_vectorizer_.idf_,
-                "classifier_classes": self.classifier_classes_, **self.corrector_.arrays("spelling_")} | \
+                "classifier_classes": self.classifier_classes_, **self.corrector_.arrays("spelling_"),
+                **csr_arrays("index_char_matrix", self.char_matrix_), **csr_arrays("index_word_matrix", self.word_matrix_)} | \
             self.linear_.arrays("linear_")
 
     def params(self) -> dict:
@@ -188,7 +189,11 @@ class TitleIndex:
         self._fit_key_codes(entries)
         self.char_vectorizer_ = _restore_tfidf(_char_vectorizer, tables["index_char_vocabulary"], arrays["index_char_idf"])
         self.word_vectorizer_ = _restore_tfidf(_word_vectorizer, tables["index_word_vocabulary"], arrays["index_word_idf"])
-        self._fit_key_matrices()
+        if "index_char_matrix_shape" in arrays:  # stored: loading need not transform every key again
+            self.char_matrix_ = csr_from(arrays, "index_char_matrix")
+            self.word_matrix_ = csr_from(arrays, "index_word_matrix")
+        else:
+            self._fit_key_matrices()
         self._fit_groups(dictionary)
         self.linear_ = LinearTitleModel.restore(arrays, linear, "linear_")
         self.classifier_classes_ = arrays["classifier_classes"]

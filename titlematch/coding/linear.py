@@ -29,7 +29,8 @@ import scipy.sparse as sp
 from sklearn.feature_extraction.text import HashingVectorizer
 from sklearn.preprocessing import normalize as l2_normalize
 
-from titlematch.runtime.pool import available_cores, in_worker, slices
+from ..io.artefact import csr_arrays, csr_from
+from ..runtime.pool import available_cores, in_worker, slices
 
 HASH_FEATURES = 2 ** 20
 CENTROID_TEMPERATURE = 20.0  # turns centroid cosines into a sharp softmax over codes
@@ -270,13 +271,8 @@ class LinearTitleModel:
 
     # ---------------------------------------------------------------- persistence
     def arrays(self, prefix: str = "linear_") -> dict[str, np.ndarray]:
-        coef = self.coef_.tocsr()
-        return {f"{prefix}features": self.features_, f"{prefix}idf": self.idf_,
-                f"{prefix}coef_data": coef.data, f"{prefix}coef_indices": coef.indices,
-                f"{prefix}coef_indptr": coef.indptr, f"{prefix}coef_shape": np.array(coef.shape, dtype=np.int64),
-                f"{prefix}intercept": self.intercept_, f"{prefix}centroid_data": self.centroids_.data,
-                f"{prefix}centroid_indices": self.centroids_.indices, f"{prefix}centroid_indptr": self.centroids_.indptr,
-                f"{prefix}centroid_shape": np.array(self.centroids_.shape, dtype=np.int64)}
+        return {f"{prefix}features": self.features_, f"{prefix}idf": self.idf_, f"{prefix}intercept": self.intercept_,
+                **csr_arrays(f"{prefix}coef", self.coef_.tocsr()), **csr_arrays(f"{prefix}centroid", self.centroids_)}
 
     def params(self) -> dict:
         return {"max_features": self.max_features, "min_df": self.min_df, "epochs": self.epochs,
@@ -290,13 +286,9 @@ class LinearTitleModel:
         self.column_of_ = np.full(HASH_FEATURES, -1, dtype=np.int32)
         self.column_of_[self.features_] = np.arange(len(self.features_), dtype=np.int32)
         self.idf_ = arrays[f"{prefix}idf"].astype(np.float32)
-        shape = tuple(int(s) for s in arrays[f"{prefix}coef_shape"])
-        self.coef_ = sp.csr_matrix((arrays[f"{prefix}coef_data"], arrays[f"{prefix}coef_indices"],
-                                    arrays[f"{prefix}coef_indptr"]), shape=shape)
+        self.coef_ = csr_from(arrays, f"{prefix}coef")
         self.intercept_ = arrays[f"{prefix}intercept"].astype(np.float32)
-        shape = tuple(int(s) for s in arrays[f"{prefix}centroid_shape"])
-        self.centroids_ = sp.csr_matrix((arrays[f"{prefix}centroid_data"], arrays[f"{prefix}centroid_indices"],
-                                         arrays[f"{prefix}centroid_indptr"]), shape=shape)
+        self.centroids_ = csr_from(arrays, f"{prefix}centroid")
         return self
 
 

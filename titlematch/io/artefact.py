@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import scipy.sparse as sp
 
 from .. import __version__
 from . import file_sha256
@@ -202,3 +203,16 @@ def load_artefact(directory: str | os.PathLike, kind: str) -> Artefact:
             raise ArtefactError(f"{path}: cannot be read: {exc}") from None
     return Artefact(kind, _Parts(tables, "table", directory), _Parts(arrays, "array", directory),
                     _Parts(manifest["meta"], "setting", directory), manifest)
+
+
+def csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:
+    """A CSR matrix as the plain arrays an artefact stores: ``{name}_data``, ``_indices``, ``_indptr``, ``_shape``."""
+    return {f"{name}_data": matrix.data, f"{name}_indices": matrix.indices, f"{name}_indptr": matrix.indptr,
+            f"{name}_shape": np.asarray(matrix.shape, dtype=np.int64)}
+
+
+def csr_from(arrays, name: str) -> sp.csr_matrix:
+    """The CSR matrix ``csr_arrays`` stored under ``name``."""
+    shape = tuple(int(x) for x in arrays[f"{name}_shape"])
+    return sp.csr_matrix((arrays[f"{name}_data"], arrays[f"{name}_indices"], arrays[f"{name}_indptr"]),
+                         shape=shape)

@@ -24,7 +24,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 
-from ..io.artefact import MANIFEST, ArtefactError, load_artefact, write_artefact
+from ..io.artefact import MANIFEST, ArtefactError, csr_arrays, csr_from, load_artefact, write_artefact
 
 log = logging.getLogger(__name__)
 
@@ -178,14 +178,3 @@ def check_manifest(directory: Path, expected_sha256: str) -> None:
 
 def sha256_of(path: Path) -> str:
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
-
-
-def csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:
-    return {f"{name}_data": matrix.data, f"{name}_indices": matrix.indices, f"{name}_indptr": matrix.indptr,
-            f"{name}_shape": np.asarray(matrix.shape, dtype=np.int64)}
-
-
-def csr_from(arrays, name: str) -> sp.csr_matrix:
-    shape = tuple(int(x) for x in arrays[f"{name}_shape"])
-    return sp.csr_matrix((arrays[f"{name}_data"], arrays[f"{name}_indices"], arrays[f"{name}_indptr"]),
-                         shape=shape)
