@@ -149,15 +149,6 @@ def _keys(prepared: pd.DataFrame, columns: Sequence[str]) -> np.ndarray:
     return key.where(~empty, "").to_numpy(dtype=object)
 
 
-def _codes(new_keys: np.ndarray, register_keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Integer codes for keys on both sides; -1 for an empty key."""
-    codes, uniques = pd.factorize(np.concatenate([register_keys, new_keys]))
-    empty = np.flatnonzero(uniques == "")
-    if len(empty):
-        codes = np.where(codes == empty[0], -1, codes)
-    return codes[len(register_keys):].astype(np.int64), codes[: len(register_keys)].astype(np.int64)
-
-
 def join_codes(new_rows: np.ndarray, new_codes: np.ndarray, register_rows: np.ndarray,
                register_codes: np.ndarray, max_block: int, skip: np.ndarray | None = None
                ) -> tuple[np.ndarray, np.ndarray, int]:
@@ -268,19 +259,62 @@ def _oversized(index: RegisterIndex, rule, hashes: np.ndarray, max_block: int, p
 # --------------------------------------------------------------------------- rules on one partition
 
 def _register_keys(part, columns: Sequence[str]) -> np.ndarray:
-    """The partition's keys for ``columns``, kept on the partition (the same for every batch)."""
-    cache = part.__dict__.setdefault("_keys", {})
+    """The partition's keys for ``columns``."""
+    return _keys(part.prepared_, columns)
+
+
+class _KeyGroups:
+    """The rows of a partition grouped by their key for some columns, built once per partition (a
+    batch then costs its own records, not the partition's): the distinct non-empty keys, and the
+    rows of key ``c`` are ``order[starts[c]: starts[c] + counts[c]]`` (ascending)."""
+
+    def __init__(self, keys: np.ndarray) -> None:
+        codes, uniques = pd.factorize(keys)
+        empty = np.flatnonzero(uniques == "")
+        if len(empty):  # the empty key is no key: its rows join nothing
+            codes = np.where(codes == empty[0], -1, np.where(codes > empty[0], codes - 1, codes))
+            uniques = np.delete(uniques, empty[0])
+        self.keys = pd.Index(uniques, dtype=object)
+        present = codes >= 0
+        self.order = np.flatnonzero(present)[np.argsort(codes[present], kind="stable")]
+        self.counts = np.bincount(codes[present], minlength=len(uniques)).astype(np.int64)
+        self.starts = np.cumsum(self.counts) - self.counts
+
+    def codes(self, keys: np.ndarray) -> np.ndarray:
+        """Code of each key: -1 for an empty key, ``len(self.keys)`` for a key no row has."""
+        codes = self.keys.get_indexer(keys) if len(self.keys) else np.full(len(keys), -1)
+        codes = np.where(codes < 0, len(self.keys), codes).astype(np.int64)
+        codes[keys == ""] = -1
+        return codes
+
+    def members(self, code: int) -> np.ndarray:
+        if not 0 <= code < len(self.keys):
+            return np.empty(0, dtype=np.int64)
+        return self.order[self.starts[code]: self.starts[code] + self.counts[code]]
+
+    def pairs(self, new_rows: np.ndarray, new_codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Every (new row, partition row) with equal keys."""
+        found = (new_codes >= 0) & (new_codes < len(self.keys))
+        rows, codes = new_rows[found], new_codes[found]
+        ct, st = self.counts[codes], self.starts[codes]
+        offsets = np.arange(int(ct.sum())) - np.repeat(np.cumsum(ct) - ct, ct)
+        return np.repeat(rows, ct).astype(np.int64), self.order[np.repeat(st, ct) + offsets].astype(np.int64)
+
+
+def _key_groups(part, columns: Sequence[str]) -> _KeyGroups:
+    cache = part.__dict__.setdefault("_key_groups", {})
     if tuple(columns) not in cache:
-        cache[tuple(columns)] = _keys(part.prepared_, columns)
+        cache[tuple(columns)] = _KeyGroups(_register_keys(part, columns))
     return cache[tuple(columns)]
 
 
 def _key_pairs(rule: KeyRule, new: pd.DataFrame, part, too_large: np.ndarray):
     """Pairs of a key rule between ``new`` and one partition; ``too_large`` marks new rows whose block
     is over the limit in the whole register."""
-    new_codes, register_codes = _codes(_keys(new, rule.columns), _register_keys(part, rule.columns))
-    i, j, _ = join_codes(np.arange(len(new)), new_codes, np.arange(len(part)), register_codes, 0, skip=too_large)
-    return i, j
+    groups = _key_groups(part, rule.columns)
+    codes = groups.codes(_keys(new, rule.columns))
+    codes[too_large] = -1
+    return groups.pairs(np.arange(len(new)), codes)
 
 
 def _token_pairs(rule: TokenRule, new_tokens, part, rare: np.ndarray):
@@ -346,23 +380,6 @@ def blocking_matrix(matrix: sp.csr_matrix, keep_columns: np.ndarray) -> sp.csr_m
     return (matrix @ sp.diags(keep_columns.astype(matrix.dtype))).tocsr()
 
 
-def _regions(new_region: np.ndarray, register_region: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
-    """(new rows, register rows) for every region code present among the new records."""
-    new_order = np.argsort(new_region, kind="stable")
-    new_uniq, new_starts, new_counts = np.unique(new_region[new_order], return_index=True, return_counts=True)
-    order = np.argsort(register_region, kind="stable")
-    uniq, starts, counts = np.unique(register_region[order], return_index=True, return_counts=True)
-    groups = []
-    for code, s0, c0 in zip(new_uniq, new_starts, new_counts):
-        if code < 0:
-            continue
-        at = np.searchsorted(uniq, code)
-        members = order[starts[at]: starts[at] + counts[at]] if at < len(uniq) and uniq[at] == code \
-            else np.empty(0, dtype=np.int64)
-        groups.append((new_order[s0: s0 + c0], members))
-    return groups
-
-
 def _searchable(part, keep: np.ndarray, max_postings: int) -> sp.csr_matrix:
     """The partition's n-gram rows without the too-common n-grams, transposed for the product; kept
     on the partition (the same for every batch)."""
@@ -372,15 +389,41 @@ def _searchable(part, keep: np.ndarray, max_postings: int) -> sp.csr_matrix:
     return cache[max_postings]
 
 
+PRODUCT_ENTRIES = 2_000_000  # about this many similarities per product: its memory stays small
+
+
+def _product_blocks(source: sp.csr_matrix, rows: np.ndarray, target: sp.csr_matrix, chunk: int) -> list[np.ndarray]:
+    """``rows`` cut into blocks of at most ``chunk`` whose product with ``target`` (n-grams x names)
+    holds about ``PRODUCT_ENTRIES`` similarities or fewer. A row's similarities are at most its
+    n-grams' postings in ``target`` (and at most its names), so a region or partition of millions
+    of names, where a common n-gram is in a quarter of them, gets small blocks instead of a product
+    of gigabytes; each row's top k is the same in any block."""
+    if len(rows) <= 1:
+        return [rows]
+    picked = source[rows]
+    postings = np.diff(target.indptr).astype(np.float64)
+    owner = np.repeat(np.arange(len(rows)), np.diff(picked.indptr))
+    size = np.minimum(np.bincount(owner, weights=postings[picked.indices], minlength=len(rows)), target.shape[1])
+    before = np.cumsum(size) - size
+    window = (before // PRODUCT_ENTRIES).astype(np.int64)
+    key = window * (len(rows) + 1) + np.arange(len(rows)) // chunk
+    cuts = np.flatnonzero(np.diff(key)) + 1
+    return np.split(rows, cuts)
+
+
 def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_matrix, query: sp.csr_matrix,
                      part, keep: np.ndarray, max_postings: int, chunk: int, k: int):
     """Each new record's ``k`` nearest names in one partition: (new row, partition row, similarity)."""
     register_chars = part.char_matrix_
     groups = [(np.arange(len(new)), None)]
     if rule.within:
-        new_region, register_region = _codes(_keys(new, [rule.within]), _register_keys(part, [rule.within]))
+        regions = _key_groups(part, [rule.within])
+        new_region = regions.codes(_keys(new, [rule.within]))
         outside = [(np.flatnonzero(new_region < 0), None)] if rule.outside else []
-        groups = outside + _regions(new_region, register_region)
+        order = np.argsort(new_region, kind="stable")
+        codes, starts, counts = np.unique(new_region[order], return_index=True, return_counts=True)
+        groups = outside + [(order[s0: s0 + c0], regions.members(code))
+                            for code, s0, c0 in zip(codes, starts, counts) if code >= 0]
     out_i, out_j, out_s = [], [], []
     for rows, members in groups:
         if not len(rows) or (members is not None and not len(members)):
@@ -388,8 +431,7 @@ def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_m
         # Within a region the products are small: every n-gram counts there, however common.
         source = query if members is None else new_chars
         block_target = _searchable(part, keep, max_postings) if members is None else register_chars[members].T.tocsr()
-        for start in range(0, len(rows), chunk):
-            block = rows[start: start + chunk]
+        for block in _product_blocks(source, rows, block_target, chunk):
             i, j, s = _top_k(source[block] @ block_target, k, rule.min_similarity)
             out_i.append(block[i])
             out_j.append(j if members is None else members[j])
