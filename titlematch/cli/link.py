@@ -106,10 +106,17 @@ def load_register(args, fields, rejects):
 
 class LinkStep:
     """The per-chunk step of ``titlematch link``: a fitted linker applied to one chunk. Records the
-    linker sets aside (an empty name) come back in place, marked for the runner's rejects file."""
+    linker sets aside (an empty name) come back in place, marked for the runner's rejects file.
 
-    def __init__(self, linker, source: str):
+    ``fitted`` is what ``fit_link`` gave for the records EM was fitted on (those records, their
+    result and their rejects): a chunk holding them takes their rows from there instead of linking
+    them a second time. A record's pairs, features and decision do not depend on the other records
+    of its batch (so the rows are the ones ``link`` would give), except with ``one_to_one``, where
+    records compete for register entries: then every chunk is linked whole."""
+
+    def __init__(self, linker, source: str, fitted=None):
         self.linker, self.source = linker, source
+        self.fitted = None if linker.one_to_one else fitted
 
     def __call__(self, chunk):
         import numpy as np
@@ -119,7 +126,7 @@ class LinkStep:
         from ..runtime.runner import REJECT_COLUMN_COLUMN, REJECT_REASON_COLUMN
 
         rejects = Rejects()
-        result = self.linker.link(chunk, rejects=rejects, source=self.source)
+        result = self._link(chunk, rejects)
         added = [c for c in result.columns if c not in chunk.columns]
         position = pd.Series(np.arange(len(chunk)), index=chunk[ROW_COLUMN].to_numpy())
         out = chunk.reset_index(drop=True).copy()
@@ -135,6 +142,43 @@ class LinkStep:
             out.loc[at, REJECT_REASON_COLUMN] = refused["reason"].to_numpy()
             out.loc[at, REJECT_COLUMN_COLUMN] = refused["column"].to_numpy()
         return out
+
+    def _link(self, chunk, rejects):
+        import pandas as pd
+
+        from ..io import ROW_COLUMN
+
+        known = self._already_linked(chunk)
+        if known is None or not known.any():
+            return self.linker.link(chunk, rejects=rejects, source=self.source)
+        records, result, refused = self.fitted
+        rows = set(chunk.loc[known, ROW_COLUMN].tolist())
+        for entry in refused:
+            if entry["row"] in rows:
+                rejects.add(entry["file"], entry["row"], entry["column"], entry["reason"], entry["value"])
+        done = result[result[ROW_COLUMN].isin(rows)]
+        if known.all():
+            return done
+        rest = self.linker.link(chunk[~known.to_numpy()], rejects=rejects, source=self.source)
+        return pd.concat([done, rest], ignore_index=True)
+
+    def _already_linked(self, chunk):
+        """Which rows of ``chunk`` are records linked when fitting (the same row, the same values),
+        or None when there are none to take."""
+        from ..io import ROW_COLUMN
+
+        if self.fitted is None or ROW_COLUMN not in chunk.columns:
+            return None
+        records = self.fitted[0]
+        if list(records.columns) != list(chunk.columns):
+            return None
+        known = chunk[ROW_COLUMN].isin(records[ROW_COLUMN])
+        if not known.any():
+            return known
+        mine = chunk[known].reset_index(drop=True)
+        theirs = records.set_index(ROW_COLUMN, drop=False).loc[mine[ROW_COLUMN]].reset_index(drop=True)
+        # Read by another reader: taken only when the values are the same, else linked again.
+        return known if mine.equals(theirs) else None
 
 
 def run(args) -> int:
@@ -176,15 +220,22 @@ def run(args) -> int:
     if sample is None:
         raise InputError(f"{args.file}: no records to link (the file has a header only, or every row is refused)")
     # Without training, m and u are estimated by EM once, on the file's first records, and then kept:
-    # every chunk (and every Dask worker) is scored with the same weights.
-    linker.fit(index, training, records=sample, records_source=str(args.file))
+    # every chunk (and every Dask worker) is scored with the same weights. Those records are
+    # scored once: fit_link keeps their result for the chunks that hold them.
+    if training is None:
+        sample_rejects = Rejects()
+        first = linker.fit_link(index, sample, rejects=sample_rejects, records_source=str(args.file))
+        step = LinkStep(linker, str(args.file), (sample, first, sample_rejects.frame().to_dict("records")))
+    else:
+        linker.fit(index, training, records=sample, records_source=str(args.file))
+        step = LinkStep(linker, str(args.file))
     # the register and training by content: an index rebuilt in place never resumes stale chunks
     options = run_options("link", {"register": args.register, "training": args.training}, fields=args.fields,
                           register_fields=args.register_fields, id_col=args.id_col, threshold=args.threshold,
                           refer_threshold=args.refer_threshold, one_to_one=args.one_to_one,
                           neighbours=args.neighbours, max_block=args.max_block, output_prefix=args.output_prefix,
                           blocking=args.blocking)
-    result = run_chunked(args.file, args.out, LinkStep(linker, str(args.file)), options=options,
+    result = run_chunked(args.file, args.out, step, options=options,
                          desc="link records", **run_arguments(args))
     # .csv, .parquet or .xlsx, as written
     counts = read_column(result.output, args.output_prefix + "decision").value_counts()
