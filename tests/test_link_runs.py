@@ -51,3 +51,29 @@ def test_link_dask_engine_identical_to_local(workdir):
                      "--scheduler", cluster.scheduler_address) == 0
     assert _link(path, path / "local.csv", "--chunk-rows", "300") == 0
     assert (path / "dask.csv").read_bytes() == (path / "local.csv").read_bytes()
+
+
+def test_link_scores_the_records_em_is_fitted_on_once(workdir, monkeypatch):
+    # Reference: the same command with those records linked again in their chunks, as before the
+    # command kept fit_link's result for them: the same output and rejects, byte for byte.
+    from titlematch.cli.link import LinkStep
+    from titlematch.linking.linker import EstablishmentLinker
+    path, data = workdir
+    # EM on the first 400 records: chunks of 250 hold them whole, in part, and not at all.
+    monkeypatch.setitem(EstablishmentLinker.__init__.__kwdefaults__, "em_records", 400)
+    scored = []
+    score = EstablishmentLinker._score_input
+
+    def counting(self, frame, source="<records>"):
+        scored.append(len(frame))
+        return score(self, frame, source)
+
+    monkeypatch.setattr(EstablishmentLinker, "_score_input", counting)
+    assert _link(path, path / "once.csv", "--chunk-rows", "250") == 0
+    once, scored[:] = sum(scored), []
+    monkeypatch.setattr(LinkStep, "_already_linked", lambda self, chunk: None)
+    assert _link(path, path / "again.csv", "--chunk-rows", "250") == 0
+    assert (path / "once.csv").read_bytes() == (path / "again.csv").read_bytes()
+    assert (path / "once.rejects.csv").read_bytes() == (path / "again.rejects.csv").read_bytes()
+    valid = len(data["new"]) - 1  # one empty name, among the first 400
+    assert once == valid and sum(scored) == valid + 399

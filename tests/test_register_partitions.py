@@ -238,3 +238,48 @@ def test_register_killed_while_writing_leaves_the_old_index(tmp_path, data):
     assert main(["register", str(tmp_path / "new.csv"), "--out", str(tmp_path / "index"),
                  "--partition-rows", "200", "--quiet"]) == 0
     assert RegisterIndex.load(tmp_path / "index").display_["register_name"].str.endswith(" X").all()
+
+
+def test_key_rule_pairs_are_the_inner_join_on_the_key(tmp_path, data, one_core):
+    # Reference: pandas' inner join (merge) of the records and the register on the key, which is
+    # what a key rule is without a block limit. The partitioned index groups each partition's
+    # rows by key once; a second batch on the same partitions finds the same pairs.
+    from titlematch.linking.blocking import KeyRule, candidate_pairs
+    index, _ = one_core
+    columns = ["address.house_number", "address.street_name", "postcode.value"]
+    new = index.prepare(data["new"])
+
+    def keyed(frame, side):
+        key = frame[columns].astype(str).agg("|".join, axis=1)
+        out = pd.DataFrame({"key": key, side: np.arange(len(frame))})
+        return out[(frame[columns] != "").all(axis=1).to_numpy()]
+
+    expected = keyed(new, "new").merge(keyed(index.prepared_, "register"), on="key")
+    expected = expected.sort_values(["new", "register"])[["new", "register"]].reset_index(drop=True)
+    assert len(expected) > 0.5 * len(new)
+    index.save(tmp_path / "index", partition_rows=1_000)
+    loaded = RegisterIndex.load(tmp_path / "index")
+    for _ in range(2):
+        pairs = candidate_pairs(new, loaded, [KeyRule("house + street + postcode", tuple(columns))],
+                                max_block=10 ** 9)
+        pd.testing.assert_frame_equal(pairs.astype(np.int64), expected.astype(np.int64))
+
+
+def test_neighbour_search_in_small_product_blocks_finds_the_same_pairs(monkeypatch, data, one_core):
+    # Reference: the same search with each region's product in one block.
+    from titlematch.linking import blocking
+    index, _ = one_core
+    new = index.prepare(data["new"])
+    chars, _ = index.vectorize(new["text"])
+    part = index.partition(0)
+    monkeypatch.setattr(blocking, "PRODUCT_ENTRIES", 500)
+    assert len(blocking._product_blocks(chars, np.arange(len(new)), part.char_matrix_.T.tocsr(), 2000)) > 20
+    for regional in (False, True):
+        rules = [r for r in blocking.default_rules(index.fields_, regional=regional)
+                 if isinstance(r, blocking.NeighbourRule)]
+        cut = blocking.candidate_pairs(new, index, rules)
+        monkeypatch.setattr(blocking, "PRODUCT_ENTRIES", 10 ** 12)
+        whole = blocking.candidate_pairs(new, index, rules)
+        monkeypatch.setattr(blocking, "PRODUCT_ENTRIES", 500)
+        pd.testing.assert_frame_equal(cut, whole)
+        assert cut.attrs == whole.attrs and len(cut) > len(new)
