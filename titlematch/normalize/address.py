@@ -100,8 +100,12 @@ def _directionals() -> dict[str, str]:
 
 # --------------------------------------------------------------------------- tokens
 
+_NOT_ADDRESS_CHARACTER = re.compile(r"[^A-Z0-9/#-]+")
+_PART_SEPARATOR = re.compile(r"[,;\n\r]")
+
+
 def _part_tokens(part: str) -> list[str]:
-    cleaned = re.sub(r"[^A-Z0-9/#-]+", " ", part).replace("#", " # ")
+    cleaned = _NOT_ADDRESS_CHARACTER.sub(" ", part).replace("#", " # ")
     tokens: list[str] = []
     for raw in cleaned.split():
         token = raw.strip("-/")
@@ -115,7 +119,7 @@ def _part_tokens(part: str) -> list[str]:
 
 def _fold_parts(text: str) -> list[list[str]]:
     folded = unidecode(text).upper().replace(".", "").replace("'", "").replace("`", "")
-    parts = [_part_tokens(p) for p in re.split(r"[,;\n\r]", folded)]
+    parts = [_part_tokens(p) for p in _PART_SEPARATOR.split(folded)]
     return [p for p in parts if p]
 
 
@@ -141,18 +145,24 @@ def _street_line(parts: list[list[str]]) -> list[str]:
 
 
 # --------------------------------------------------------------------------- parsing
+_BOX_FORMS = (["PO", "BOX"], ["P", "O", "BOX"], ["POST", "OFFICE", "BOX"], ["POB"], ["POBOX"], ["BOX"], ["PO", "BX"])
+_ROUTE_FORMS = ((["RURAL", "ROUTE"], "RR"), (["RURAL", "RTE"], "RR"), (["RR"], "RR"), (["RFD"], "RR"),
+                (["RURAL", "FREE", "DELIVERY"], "RR"), (["ROUTE"], "RR"), (["RTE"], "RR"),
+                (["HIGHWAY", "CONTRACT"], "HC"), (["HC"], "HC"), (["STAR", "ROUTE"], "HC"))
+# A line whose first word starts none of the forms is neither (most lines: no form is tried).
+_BOX_STARTS = frozenset([form[0] for form in _BOX_FORMS] + [form[0] for form, _ in _ROUTE_FORMS])
+
+
 def _po_box(tokens: list[str]) -> ParsedAddress | None:
     words = [t for t in tokens if t != "#"]
-    for prefix in (["PO", "BOX"], ["P", "O", "BOX"], ["POST", "OFFICE", "BOX"], ["POB"], ["POBOX"],
-                   ["BOX"], ["PO", "BX"]):
+    if not words or words[0] not in _BOX_STARTS:
+        return None
+    for prefix in _BOX_FORMS:
         n = len(prefix)
         if words[:n] == prefix and len(words) > n:
             box = " ".join(words[n:])
             return ParsedAddress(unit_type="PO BOX", unit=box, key=f"PO BOX {box}", empty=False)
-    for prefix, route in ((["RURAL", "ROUTE"], "RR"), (["RURAL", "RTE"], "RR"), (["RR"], "RR"),
-                          (["RFD"], "RR"), (["RURAL", "FREE", "DELIVERY"], "RR"), (["ROUTE"], "RR"),
-                          (["RTE"], "RR"), (["HIGHWAY", "CONTRACT"], "HC"), (["HC"], "HC"),
-                          (["STAR", "ROUTE"], "HC")):
+    for prefix, route in _ROUTE_FORMS:
         n = len(prefix)
         if words[:n] != prefix or len(words) <= n:
             continue

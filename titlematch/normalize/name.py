@@ -35,7 +35,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Iterable
+from typing import Iterable, NamedTuple
 
 import pandas as pd
 from unidecode import unidecode
@@ -79,8 +79,7 @@ class NormalizedName:
     empty: bool = False
 
 
-@dataclass(frozen=True)
-class _Token:
+class _Token(NamedTuple):  # a tuple: made once per word of every name, cheaper than a frozen dataclass
     text: str
     marked: bool = False   # joined from single letters, or follows a comma
     letters: bool = False  # joined from two or more single letters
@@ -106,6 +105,8 @@ def _tokenize(folded: str) -> list[_Token]:
 
 
 def _join_single_letters(tokens: list[_Token]) -> list[_Token]:
+    if not any(len(t.text) == 1 and t.text.isalpha() for t in tokens):
+        return list(tokens)  # no run to join (most names): the loop below would copy them
     out: list[_Token] = []
     run: list[_Token] = []
 
@@ -141,10 +142,10 @@ _MARKER_SPELLINGS = [
 
 def _fold(text: str) -> str:
     folded = unidecode(text).lower()
-    folded = folded.replace("&", " and ")
-    folded = re.sub(r"['`]", "", folded)
-    for pattern, replacement in _MARKER_SPELLINGS:
-        folded = pattern.sub(replacement, folded)
+    folded = folded.replace("&", " and ").replace("'", "").replace("`", "")
+    if "." in folded or "/" in folded or "(" in folded:  # every marker spelling holds one of them
+        for pattern, replacement in _MARKER_SPELLINGS:
+            folded = pattern.sub(replacement, folded)
     return folded
 
 
@@ -171,6 +172,12 @@ def legal_form_table() -> dict[tuple[str, ...], tuple[str, bool]]:
 @lru_cache(maxsize=1)
 def _longest_legal_form() -> int:
     return max(len(k) for k in legal_form_table())
+
+
+@lru_cache(maxsize=1)
+def _legal_form_ends() -> frozenset[str]:
+    """The last word of every legal form: a name ending otherwise has none to take out."""
+    return frozenset(k[-1] for k in legal_form_table())
 
 
 @lru_cache(maxsize=1)
@@ -232,6 +239,8 @@ def _take_branch(tokens: list[_Token]) -> str:
 
 def _take_legal_form(tokens: list[_Token]) -> str:
     """Remove the longest legal form ending ``tokens`` (in place); return its canonical form."""
+    if not tokens or tokens[-1].text not in _legal_form_ends():
+        return ""
     table = legal_form_table()
     longest = _longest_legal_form()
     for width in range(min(longest, len(tokens) - 1), 0, -1):
@@ -285,6 +294,8 @@ def _expand(tokens: list[_Token]) -> list[str]:
             joined.append(word)
     abbreviations = _abbreviations()
     expanded = [abbreviations.get(w, w) for w in joined]
+    if not any(len(w) == 1 and w.isalpha() for w in expanded):
+        return expanded  # no run of single letters to join
     return [t.text for t in _join_single_letters([_Token(w) for w in expanded])]
 
 
