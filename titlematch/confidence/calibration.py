@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -45,13 +46,21 @@ def calibrate(coder: TitleCoder, gold: pd.DataFrame | None = None, *, min_accura
     report marks as less reliable.
     """
     stages = Stages(4, "calibrate", quiet)
-    feats = gold_labels(coder, gold) if gold is not None else None
+    # The gold sample is coded on a second thread while the history's coder is fitted: that fit
+    # spends its time in sparse products that release the interpreter lock, the coding in Python.
+    # Each result is what it would be alone (neither writes anything the other reads).
+    with ThreadPoolExecutor(1) as executor:
+        coding_gold = executor.submit(gold_labels, coder, gold) if gold is not None else None
+        try:
+            train, history_error = history_labels(coder.dictionary_, max_units=max_units,
+                                                  random_state=random_state), None
+        except ValueError as error:
+            train, history_error = None, error
+        feats = coding_gold.result() if coding_gold is not None else None
     with_gold = feats is not None and feats["label"].nunique() == 2
-    try:
-        train = history_labels(coder.dictionary_, max_units=max_units, random_state=random_state)
-    except ValueError:
+    if history_error is not None:
         if not with_gold:
-            raise
+            raise history_error
         # a first year of coding: too few records to hold any out, so the gold sample teaches alone
         train = feats.iloc[:0].assign(weight=pd.Series(dtype=float))
     stages.step("labels from history")
