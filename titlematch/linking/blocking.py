@@ -478,6 +478,29 @@ def needed_partitions(new: pd.DataFrame, index: RegisterIndex, rules: Sequence) 
     return np.unique(np.concatenate(needed)) if needed else everything
 
 
+def default_max_postings(index: RegisterIndex) -> int:
+    """N-grams in more register names than this are left out of the search over a whole partition."""
+    return max(2000, int(0.005 * len(index)))
+
+
+def prepare_partitions(index: RegisterIndex, rules: Sequence, partitions) -> None:
+    """Build what the rules keep on each of ``partitions`` (rows grouped by key, the searchable
+    n-gram rows) now, in this process: forked workers then share them instead of each building
+    its own for every batch."""
+    max_postings = default_max_postings(index)
+    keep = index.char_postings_ <= max_postings
+    for p in partitions:
+        part = index.partition(int(p))
+        for rule in rules:
+            if isinstance(rule, KeyRule):
+                _key_groups(part, rule.columns)
+            elif isinstance(rule, NeighbourRule):
+                if rule.within:
+                    _key_groups(part, [rule.within])
+                if not rule.within or rule.outside:
+                    _searchable(part, keep, max_postings)
+
+
 def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
                     new_chars: sp.csr_matrix | None = None, new_words: sp.csr_matrix | None = None,
                     max_block: int = 100, max_postings: int | None = None, chunk: int = 2000,
@@ -505,7 +528,7 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
     if new_chars is None or new_words is None:
         new_chars, new_words = index.vectorize(new["text"])
     if max_postings is None:
-        max_postings = max(2000, int(0.005 * len(index)))
+        max_postings = default_max_postings(index)
     n_register = len(index)
     keep = index.char_postings_ <= max_postings
     query = blocking_matrix(new_chars, keep)

@@ -234,6 +234,17 @@ def compare(pairs: pd.DataFrame, new: pd.DataFrame, index: RegisterIndex, *,
     return features
 
 
+def prepare_comparisons(index: RegisterIndex, partitions, new: pd.DataFrame, new_chars: sp.csr_matrix,
+                        new_words: sp.csr_matrix) -> None:
+    """Build the register side of every comparison (codes, numbers) on ``partitions`` now, in this
+    process, by comparing no pairs: forked workers then share it instead of each building its own
+    for every batch."""
+    none = np.empty(0, dtype=np.int64)
+    for k in partitions:
+        _compare_part(none, none, new.head(0), index.partition(int(k)), index.fields_, new_chars[:0],
+                      new_words[:0], workers=1)
+
+
 def _compare_part(i: np.ndarray, j: np.ndarray, new: pd.DataFrame, part, fields: Sequence[Field],
                   new_chars: sp.csr_matrix, new_words: sp.csr_matrix, workers: int) -> pd.DataFrame:
     """Features of pairs (new row ``i``, partition row ``j``) within one register partition."""

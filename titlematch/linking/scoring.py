@@ -19,8 +19,8 @@ import pandas as pd
 import scipy.sparse as sp
 
 from ..runtime.pool import map_slices, resolve_workers, slices
-from .blocking import KeyRule, TokenRule, block_sizes, candidate_pairs, needed_partitions
-from .comparison import compare
+from .blocking import KeyRule, TokenRule, block_sizes, candidate_pairs, needed_partitions, prepare_partitions
+from .comparison import compare, prepare_comparisons
 from .register import RegisterIndex
 
 SLICE_ROWS = 500  # fewer records per process than this are not worth a fork
@@ -42,9 +42,12 @@ def pairs_and_features(new: pd.DataFrame, index: RegisterIndex, rules: Sequence,
     for rule in rules:  # counted once here, before the fork, instead of once in every worker
         if isinstance(rule, (KeyRule, TokenRule)):
             block_sizes(index, rule, needed)
-    # Partitions read here are shared by the forked workers; an index too large for the cache is
-    # read by each worker, a partition at a time.
-    index.preload(needed)
+    # Partitions read here are shared by the forked workers, and so is what blocking and comparison
+    # keep on them (built here once, not in every worker for every batch); an index too large for
+    # the cache is read by each worker, a partition at a time.
+    if index.preload(needed):
+        prepare_partitions(index, rules, needed)
+        prepare_comparisons(index, needed, new, new_chars, new_words)
 
     def one(rows: slice):
         records = new.iloc[rows].reset_index(drop=True)
