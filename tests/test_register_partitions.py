@@ -265,6 +265,37 @@ def test_key_rule_pairs_are_the_inner_join_on_the_key(tmp_path, data, one_core):
         pd.testing.assert_frame_equal(pairs.astype(np.int64), expected.astype(np.int64))
 
 
+def test_word_rule_pairs_are_the_inner_join_on_place_and_rare_word(tmp_path, data, one_core):
+    # Reference: pandas' inner join of (place, rare name word) rows of the records and the register,
+    # which is what a word rule is without a block limit. The partitioned index groups each
+    # partition's (place, word) rows once; a second batch on the same partitions finds the same pairs.
+    from titlematch.linking.blocking import TokenRule, candidate_pairs
+    index, _ = one_core
+    within = next(c for c in index.prepared_.columns if c.endswith(".value") and "city" in c)
+    rule = TokenRule("place + name words", within=within)
+    new = index.prepare(data["new"])
+    _, new_words = index.vectorize(new["text"])
+    rare = index.word_frequency_ <= max(1, rule.max_share * len(index))
+
+    def words(frame, matrix, side):
+        rows = np.repeat(np.arange(matrix.shape[0]), np.diff(matrix.indptr))
+        keep = rare[matrix.indices]
+        out = pd.DataFrame({side: rows[keep], "word": matrix.indices[keep],
+                            "place": frame[within].fillna("").astype(str).to_numpy()[rows[keep]]})
+        return out[out["place"] != ""]
+
+    expected = words(new, new_words, "new").merge(words(index.prepared_, index.word_matrix_, "register"),
+                                                  on=["place", "word"])
+    expected = (expected[["new", "register"]].drop_duplicates().sort_values(["new", "register"])
+                .reset_index(drop=True))
+    assert len(expected) > 0.5 * len(new)
+    index.save(tmp_path / "index", partition_rows=1_000)
+    loaded = RegisterIndex.load(tmp_path / "index")
+    for _ in range(2):
+        pairs = candidate_pairs(new, loaded, [rule], max_block=10 ** 9)
+        pd.testing.assert_frame_equal(pairs.astype(np.int64), expected.astype(np.int64))
+
+
 def test_neighbour_search_in_small_product_blocks_finds_the_same_pairs(monkeypatch, data, one_core):
     # Reference: the same search with each region's product in one block.
     from titlematch.linking import blocking

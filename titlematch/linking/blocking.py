@@ -317,16 +317,26 @@ def _key_pairs(rule: KeyRule, new: pd.DataFrame, part, too_large: np.ndarray):
     return groups.pairs(np.arange(len(new)), codes)
 
 
+def _token_groups(rule: TokenRule, part, rare: np.ndarray) -> tuple[np.ndarray, _KeyGroups]:
+    """The partition's rows holding a rare word, grouped by the hash of (region, word): built once per
+    partition, as the key rules' groups are, so a batch costs its own words only."""
+    cache = part.__dict__.setdefault("_token_groups", {})
+    key = (rule.within, rule.max_share)
+    if key not in cache:
+        register_rows, _, register_hashes = _token_hashes(rule, part.prepared_, part.word_matrix_, rare)
+        cache[key] = (register_rows, _KeyGroups(register_hashes))
+    return cache[key]
+
+
 def _token_pairs(rule: TokenRule, new_tokens, part, rare: np.ndarray):
     """Pairs sharing a rare word (in the same region) between the new records' (row, word, hash, too
     large) and one partition."""
     rows, _, hashes, too_large = new_tokens
-    register_rows, _, register_hashes = _token_hashes(rule, part.prepared_, part.word_matrix_, rare)
-    # The hash stands for (region, word): factorized together, equal hashes are equal codes.
-    codes, _ = pd.factorize(np.concatenate([register_hashes, hashes]))
-    i, j, _ = join_codes(rows, codes[len(register_hashes):].astype(np.int64), register_rows,
-                         codes[: len(register_hashes)].astype(np.int64), 0, skip=too_large)
-    return i, j
+    register_rows, groups = _token_groups(rule, part, rare)
+    codes = groups.codes(hashes)
+    codes[too_large] = -1
+    i, at = groups.pairs(rows, codes)
+    return i, register_rows[at].astype(np.int64)
 
 
 def top_k(similarity: sp.csr_matrix, k: int, min_similarity: float) -> tuple[np.ndarray, np.ndarray]:
@@ -494,6 +504,8 @@ def prepare_partitions(index: RegisterIndex, rules: Sequence, partitions) -> Non
         for rule in rules:
             if isinstance(rule, KeyRule):
                 _key_groups(part, rule.columns)
+            elif isinstance(rule, TokenRule):
+                _token_groups(rule, part, _rare_words(rule, index))
             elif isinstance(rule, NeighbourRule):
                 if rule.within:
                     _key_groups(part, [rule.within])
