@@ -13,11 +13,12 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
-from sklearn.feature_extraction.text import TfidfVectorizer
+from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 
 from ..io.artefact import ArtefactError, csr_arrays, csr_from
 from .dictionary import TitleDictionary
 from .linear import LinearTitleModel
+from ..normalize.ngrams import char_wb_counts, tfidf_weights
 from ..normalize.spelling import SpellingCorrector
 
 CHUNK = 2048
@@ -115,7 +116,9 @@ class TitleIndex:
         self._fit_key_codes(entries)
         # fitted and applied to the keys in one pass (the same matrices as fit then transform)
         self.char_vectorizer_, self.word_vectorizer_ = _char_vectorizer(min_df=1), _word_vectorizer()
-        self.char_matrix_ = self.char_vectorizer_.fit_transform(self.keys_).T.tocsr()
+        counts = char_wb_counts(self.char_vectorizer_, self.keys_, fit=True)
+        self.char_vectorizer_.idf_ = TfidfTransformer(sublinear_tf=True).fit(counts).idf_
+        self.char_matrix_ = tfidf_weights(counts, self.char_vectorizer_.idf_).T.tocsr()
         self.word_matrix_ = self.word_vectorizer_.fit_transform(self.keys_).T.tocsr()
         self._fit_groups(dictionary)
         self._fit_classifier(dictionary)
@@ -138,8 +141,8 @@ class TitleIndex:
         self.key_lookup_ = {k: i for i, k in enumerate(self.keys_)}
 
     def _fit_key_matrices(self) -> None:
-        self.char_matrix_ = self.char_vectorizer_.transform(self.keys_).T.tocsr()
-        self.word_matrix_ = self.word_vectorizer_.transform(self.keys_).T.tocsr()
+        chars, words = self.query_rows(self.keys_)
+        self.char_matrix_, self.word_matrix_ = chars.T.tocsr(), words.T.tocsr()
 
     def _fit_classifier(self, dictionary: TitleDictionary) -> None:
         # The discriminative model for titles the dictionary does not hold (see ``linear``), trained
@@ -205,15 +208,21 @@ class TitleIndex:
         return self
 
     # ---------------------------------------------------------------- searching
-    def neighbours(self, queries, source: str) -> pd.DataFrame:
-        """Top dictionary keys per query by ``source`` ("char" or "word") cosine: query, key, sim."""
-        vec, matrix = ((self.char_vectorizer_, self.char_matrix_) if source == "char"
-                       else (self.word_vectorizer_, self.word_matrix_))
+    def query_rows(self, queries) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+        """The queries' TF-IDF rows for the character and the word search: the vectorizers' own
+        ``transform``, with the character n-grams counted once per distinct word (``normalize.ngrams``)."""
+        chars = tfidf_weights(char_wb_counts(self.char_vectorizer_, queries), self.char_vectorizer_.idf_)
+        return chars, self.word_vectorizer_.transform(queries)
+
+    def neighbours(self, rows: sp.csr_matrix, source: str) -> pd.DataFrame:
+        """Top dictionary keys per query row (``query_rows``) by ``source`` ("char" or "word") cosine:
+        query, key, sim."""
+        matrix = self.char_matrix_ if source == "char" else self.word_matrix_
         out = []
-        for start in range(0, len(queries), CHUNK):
-            q = vec.transform(queries[start:start + CHUNK])
-            rows, cols, vals = top_k_sparse(q @ matrix, self.n_neighbours, min_score=0.05)
-            out.append(pd.DataFrame({"query": rows + start, "key": cols, "sim": vals.astype(np.float64)}))
+        for start in range(0, rows.shape[0], CHUNK):
+            q = rows[start:start + CHUNK]
+            at, cols, vals = top_k_sparse(q @ matrix, self.n_neighbours, min_score=0.05)
+            out.append(pd.DataFrame({"query": at + start, "key": cols, "sim": vals.astype(np.float64)}))
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
 
     def classify(self, queries, contexts=None, pairs: tuple[np.ndarray, np.ndarray] | None = None):

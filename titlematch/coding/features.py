@@ -120,7 +120,8 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     primaries = per_query["primary"].to_numpy(dtype=object)
     qtext = per_query["corrected"].to_numpy(dtype=object)
 
-    pairs = [index.neighbours(qtext, "char"), index.neighbours(qtext, "word")]
+    qc, qw = index.query_rows(qtext)
+    pairs = [index.neighbours(qc, "char"), index.neighbours(qw, "word")]
     exact_orig = index.exact(originals).assign(exact=1.0)
     exact_corr = index.exact(qtext).assign(exact_corrected=1.0)
     role_mask = np.array([p != o and p != "" for p, o in zip(primaries, originals)])
@@ -134,8 +135,6 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
 
     # uniform similarity features for every (query, key) pair, whatever source found it
     q_idx, k_idx = flags["query"].to_numpy(np.int64), flags["key"].to_numpy(np.int64)
-    qc = index.char_vectorizer_.transform(qtext)
-    qw = index.word_vectorizer_.transform(qtext)
     kc, kw = index.char_matrix_.T.tocsr(), index.word_matrix_.T.tocsr()
     flags["sim_char"] = _pairwise_cosine(qc[q_idx], kc[k_idx])
     flags["sim_word"] = _pairwise_cosine(qw[q_idx], kw[k_idx])

@@ -30,6 +30,7 @@ from sklearn.feature_extraction.text import HashingVectorizer
 from sklearn.preprocessing import normalize as l2_normalize
 
 from ..io.artefact import csr_arrays, csr_from
+from ..normalize.ngrams import char_wb_counts
 from ..runtime.pool import available_cores, in_worker, slices
 
 HASH_FEATURES = 2 ** 20
@@ -99,7 +100,7 @@ class LinearTitleModel:
         words, chars = self._hashers()
         keys = list(keys)
         texts = [_word_text(k, c) for k, c in zip(keys, context_words)]
-        X = (words.transform(texts) + chars.transform(keys)).tocsr()
+        X = (words.transform(texts) + char_wb_counts(chars, keys)).tocsr()
         X.data = np.log1p(X.data)  # sublinear tf
         return X
 
