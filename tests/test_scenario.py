@@ -232,6 +232,38 @@ def test_survey_records_vary_from_the_register(establishments):
         new["name"].str.contains("&").any()
 
 
+def test_a_larger_register_covers_more_places_each_as_large_as_before(monkeypatch):
+    # Above COUNTY_ROWS rows each further county adds 30 invented towns (weighted as the first
+    # county's) and its own ZIP codes, so places do not grow with the register; up to it the
+    # region is the 30 towns and 43 ZIP codes of towns.csv (the demo's golden hashes pin that).
+    from titlematch.datasets import _register
+    base = _register.places_for(_register.COUNTY_ROWS)
+    assert base.names.tolist() == [row[0] for row in vocab.TOWNS]
+    assert sum(len(z) for z in base.zips) == 43
+    monkeypatch.setattr(_register, "COUNTY_ROWS", 1_000)
+    _register.places_for.cache_clear()
+    try:
+        data = make_register_scenario(seed=9, register_rows=4_000, new_records=600)
+        places = _register.places_for(4_000)
+    finally:
+        _register.places_for.cache_clear()
+    register = data["register"]
+    assert len(places) == 4 * 30 and len(set(places.names)) == 120
+    assert places.names[:30].tolist() == [row[0] for row in vocab.TOWNS]
+    codes = [code for options in places.zips for code in options]
+    assert len(codes) == 4 * 43 and len(set(codes)) == len(codes)  # a ZIP code belongs to one town
+    assert register["city"].nunique() > 60 and register["postcode"].nunique() > 80
+    assert register["postcode"].str.fullmatch(r"\d{5}").all()
+    town_of = {code: town for town, options in zip(places.names, places.zips) for code in options}
+    assert (register["postcode"].map(town_of) == register["city"]).all()
+    # the first county keeps its share: about a quarter of the rows, as its weights are a quarter
+    assert 0.2 < register["city"].isin(places.names[:30]).mean() < 0.3
+    truth = data["truth"]
+    matched = truth["register_id"][truth["register_id"] != ""]
+    assert matched.isin(register["register_id"]).all() and matched.is_unique
+    assert not register.duplicated(["name", "address", "city"]).any()
+
+
 # --------------------------------------------------------------------------- files
 def test_write_scenario_writes_readable_csv_files(tmp_path):
     paths = write_scenario(tmp_path / "demo", seed=3, small=True)

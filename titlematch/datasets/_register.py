@@ -2,6 +2,7 @@
 (see ``titlematch.datasets.scenario``)."""
 from __future__ import annotations
 
+from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
@@ -17,6 +18,75 @@ _SIZE_BASE = np.array([0.34, 0.2, 0.15, 0.13, 0.08, 0.05, 0.03, 0.015, 0.005])
 _NUMBERS = np.array([str(i) for i in range(30_400)], dtype=object)  # int -> str without astype(str)
 _PROFESSIONAL_NAICS = ("541110", "541211", "541330", "621111", "621210", "541940")  # may be PC, PLLC, LLP
 _UNIT_WEIGHTS = {"Suite": 60, "Unit": 20, "Building": 5, "Floor": 5, "Room": 5, "Apartment": 5}
+
+
+# Places. Up to COUNTY_ROWS register rows the region is the 30 towns and 43 ZIP codes of
+# ``data/towns.csv`` (the demo and the tests stay inside this). A larger register covers more
+# country: one county per COUNTY_ROWS rows, each with 30 invented towns weighted as the first
+# county's and 43 ZIP codes of its own, so a place or a postcode holds about as many
+# establishments at 10 million rows as at 100,000 (a national register has tens of thousands of
+# places and postcodes; a fixed 30 towns would put hundreds of thousands of names in each).
+COUNTY_ROWS = 100_000
+_PLACE_LEADS = ("", "", "", "", "", "", "North", "South", "East", "West", "Port", "Fort", "Mount", "Saint")
+_PLACE_TRAILS = ("", "", "", "", "", "", "Falls", "Springs", "Landing", "Cove", "Point", "Junction", "Harbor",
+                 "Bend", "Lake", "Hollow", "Crossing", "Heights", "City")
+
+
+@dataclass(frozen=True)
+class Places:
+    """Towns of the register's region: ``names``, drawing ``weights`` and ZIP codes (``zips[t]``)."""
+
+    names: np.ndarray
+    weights: np.ndarray
+    zips: tuple[tuple[str, ...], ...]
+
+    def __len__(self) -> int:
+        return len(self.names)
+
+
+@lru_cache(maxsize=8)
+def places_for(register_rows: int) -> Places:
+    """The towns of a register of ``register_rows`` rows (see ``COUNTY_ROWS``)."""
+    base_names = [row[0] for row in vocab.TOWNS]
+    weights = [float(row[1]) for row in vocab.TOWNS]
+    zips = [tuple(split_alternatives(row[2])) for row in vocab.TOWNS]
+    counties = max(1, -(-register_rows // COUNTY_ROWS))
+    if counties == 1:
+        return Places(objects(base_names), np.array(weights), tuple(zips))
+    extra = (counties - 1) * len(base_names)
+    names = _invented_place_names(extra, frozenset(base_names))
+    taken = {code for options in zips for code in options}
+    free = [f"{number:05d}" for number in range(10_000, 100_000) if f"{number:05d}" not in taken]
+    per_county = sum(len(options) for options in zips)
+    if (counties - 1) * per_county > len(free):
+        raise ValueError(f"register_rows={register_rows}: more counties than five-digit ZIP codes")
+    at = 0
+    for _ in range(counties - 1):  # each county: the first county's weights, its own ZIP codes in sequence
+        for options in zips[:len(base_names)]:
+            zips.append(tuple(free[at: at + len(options)]))
+            at += len(options)
+    return Places(objects(base_names + names), np.tile(np.array(weights), counties), tuple(zips))
+
+
+@lru_cache(maxsize=1)
+def _place_name_pool() -> tuple[str, ...]:
+    """Invented town names (lead word + name stem + trailing word, the words drawn as often as
+    ``_PLACE_LEADS`` and ``_PLACE_TRAILS`` list them) in a fixed order, so a county's towns are the
+    same whatever the register's size."""
+    stems = objects([p + s for p in vocab.STEM_PREFIXES for s in vocab.STEM_SUFFIXES
+                     if not p.lower().endswith(s) and p[-2:].lower() != s[0] * 2 and p[-1].lower() + s[:2] != s[0] * 3])
+    rng = np.random.default_rng(58_101)
+    draws = 400_000
+    lead, trail = choose(rng, _PLACE_LEADS, draws), choose(rng, _PLACE_TRAILS, draws)
+    names = _spaced(lead) + stems[rng.integers(len(stems), size=draws)] + _spaced(trail, after=False)
+    return tuple(pd.unique(names).tolist())
+
+
+def _invented_place_names(count: int, avoid: frozenset) -> list[str]:
+    pool = [name for name in _place_name_pool() if name not in avoid]
+    if count > len(pool):
+        raise ValueError(f"{count} invented towns asked for, {len(pool)} available")
+    return pool[:count]
 
 
 def _spaced(values: np.ndarray, after: bool = True) -> np.ndarray:
@@ -59,7 +129,8 @@ def _initials(rng: np.random.Generator, n: int) -> np.ndarray:
 _NAME_PATTERN_WEIGHTS = np.array([40, 18, 7, 4, 8, 5, 10, 8.0])
 
 
-def _employer_names(rng: np.random.Generator, n: int, industry: np.ndarray, town: np.ndarray) -> np.ndarray:
+def _employer_names(rng: np.random.Generator, n: int, industry: np.ndarray, town: np.ndarray,
+                    places: Places) -> np.ndarray:
     """Invented names without legal form: "Ashbrook Plumbing", "Okafor & Trask Dental" ...
 
     Patterns: stem + trade, surname + trade, two surnames, "Brothers", town + trade, initials + trade,
@@ -82,7 +153,7 @@ def _employer_names(rng: np.random.Generator, n: int, industry: np.ndarray, town
         elif kind == 3:
             names[rows] = choose(rng, vocab.SURNAMES, m) + " Brothers " + trade
         elif kind == 4:
-            names[rows] = objects([row[0] for row in vocab.TOWNS])[town[rows]] + " " + trade
+            names[rows] = places.names[town[rows]] + " " + trade
         elif kind == 5:
             names[rows] = _initials(rng, m) + " " + trade
         elif kind == 6:
@@ -100,10 +171,10 @@ def _legal_forms(rng: np.random.Generator, n: int) -> np.ndarray:
     return choose(rng, list(vocab.LEGAL_FORMS), n, list(vocab.LEGAL_FORMS.values()))
 
 
-def addresses(rng: np.random.Generator, n: int) -> dict[str, np.ndarray]:
+def addresses(rng: np.random.Generator, n: int, places: Places) -> dict[str, np.ndarray]:
     """Address parts and the register's standard written form (USPS-style abbreviations)."""
-    town = draw_weighted(rng, np.array([row[1] for row in vocab.TOWNS], dtype=float), n)
-    zips = [split_alternatives(row[2]) for row in vocab.TOWNS]
+    town = draw_weighted(rng, places.weights, n)
+    zips = places.zips
     zip_count = np.array([len(options) for options in zips])
     zip_start = np.cumsum(zip_count) - zip_count
     postcode = objects([code for options in zips for code in options])[
@@ -185,11 +256,12 @@ def _unique_chain_names(rng: np.random.Generator, count: int) -> tuple[np.ndarra
     return names.to_numpy(dtype=object)[:count], industries[:count]
 
 
-def independent_employers(rng: np.random.Generator, n: int, town: np.ndarray) -> dict[str, np.ndarray]:
+def independent_employers(rng: np.random.Generator, n: int, town: np.ndarray, places: Places
+                          ) -> dict[str, np.ndarray]:
     """Single-site employers; 8% are written as "legal name dba trade name"."""
     weights = np.array([1.0 + row[2] for row in vocab.INDUSTRIES])
     industry = draw_weighted(rng, weights, n)
-    core = _employer_names(rng, n, industry, town)
+    core = _employer_names(rng, n, industry, town, places)
     legal = _legal_forms(rng, n)
     professional = np.isin(np.array([row[0] for row in vocab.INDUSTRIES])[industry], _PROFESSIONAL_NAICS)
     legal[np.isin(legal, ("PC", "PLLC", "LLP")) & ~professional] = "LLC"
@@ -207,23 +279,24 @@ def _name_of(parts: dict[str, np.ndarray]) -> np.ndarray:
             + np.where(parts["trade"] != "", " dba " + parts["trade"], "")).astype(object)
 
 
-def _clashes(parts: dict[str, np.ndarray], taken: dict[str, np.ndarray] | None = None) -> np.ndarray:
+def _clashes(parts: dict[str, np.ndarray], taken: dict[str, np.ndarray] | None = None,
+             n_places: int = len(vocab.TOWNS)) -> np.ndarray:
     """Rows of ``parts`` repeating an earlier row's (name, address, town), or one of ``taken``."""
     columns = [parts[key] if taken is None else np.concatenate([taken[key], parts[key]])
                for key in ("core", "address", "town")]
     name_code = pd.factorize(columns[0])[0].astype(np.int64)
     address_code = pd.factorize(columns[1])[0].astype(np.int64)
-    key = (name_code * (address_code.max() + 1) + address_code) * len(vocab.TOWNS) + columns[2]
+    key = (name_code * (address_code.max() + 1) + address_code) * n_places + columns[2]
     repeated = pd.Series(key).duplicated().to_numpy()
     return repeated if taken is None else repeated[len(taken["core"]):]
 
 
 def separate_branches(rng: np.random.Generator, parts: dict[str, np.ndarray],
-                       taken: dict[str, np.ndarray] | None = None) -> None:
+                       taken: dict[str, np.ndarray] | None = None, n_places: int = len(vocab.TOWNS)) -> None:
     """Give a new house number to rows whose (name, address, town) repeats or is ``taken``: chain
     branches and namesakes must stay distinguishable by their address."""
     for _ in range(50):
-        rows = np.flatnonzero(_clashes(parts, taken))
+        rows = np.flatnonzero(_clashes(parts, taken, n_places))
         if not len(rows):
             return
         bumped = np.array([int(house) for house in parts["house"][rows]]) + rng.integers(1, 400, size=len(rows))
@@ -239,18 +312,18 @@ def join(*blocks: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
     return {key: np.concatenate([block[key] for block in blocks]) for key in blocks[0]}
 
 
-def build_register(rng: np.random.Generator, rows: int, chain_share: float):
+def build_register(rng: np.random.Generator, rows: int, chain_share: float, places: Places):
     sizes = _chain_sizes(rng, int(round(chain_share * rows)))
     chain_names, chain_industry = _unique_chain_names(rng, len(sizes))
     chain_legal = choose(rng, ("Inc", "LLC", "Corp", "Co"), len(sizes), (5, 4, 2, 1))
     chain_of = np.repeat(np.arange(len(sizes)), sizes)
-    address = addresses(rng, rows)
+    address = addresses(rng, rows, places)
     chained = {"core": chain_names[chain_of], "legal": chain_legal[chain_of],
                "trade": np.full(len(chain_of), "", dtype=object), "industry": chain_industry[chain_of],
                "chain": chain_of}
-    single = independent_employers(rng, rows - len(chain_of), address["town"][len(chain_of):])
+    single = independent_employers(rng, rows - len(chain_of), address["town"][len(chain_of):], places)
     parts = {**join(chained, single), **address} if len(chain_of) else {**single, **address}
-    separate_branches(rng, parts)
+    separate_branches(rng, parts, n_places=len(places))
     parts["size"] = _size_classes(rng, parts["industry"], extra=0) + (parts["chain"] >= 0)
     parts["size"] = np.minimum(parts["size"], len(vocab.SIZE_CLASSES) - 1)
     # the register lists establishments in a shuffled order; parts keep the generation order
@@ -259,7 +332,7 @@ def build_register(rng: np.random.Generator, rows: int, chain_share: float):
     position[order] = np.arange(rows)
     parts["register_id"] = identifiers("LR", rows)[position]
     naics = objects([row[0] for row in vocab.INDUSTRIES])
-    towns = objects([row[0] for row in vocab.TOWNS])
+    towns = places.names
     register = pd.DataFrame({
         "register_id": parts["register_id"][order], "name": _name_of(parts)[order],
         "address": parts["address"][order], "city": towns[parts["town"][order]],
@@ -371,11 +444,11 @@ def _survey_naics(naics: np.ndarray, rng: np.random.Generator) -> np.ndarray:
     return out
 
 
-def establishment_records(rng: np.random.Generator, parts: dict[str, np.ndarray]) -> pd.DataFrame:
+def establishment_records(rng: np.random.Generator, parts: dict[str, np.ndarray], places: Places) -> pd.DataFrame:
     """Written survey records for the establishments in ``parts`` (vectorized draws, one pass per record)."""
     n = len(parts["core"])
     u, k = rng.random((n, 16)), rng.integers(0, 1 << 30, size=(n, 4))
-    towns = [row[0] for row in vocab.TOWNS]
+    towns = places.names.tolist()
     columns = zip(parts["core"], parts["legal"], parts["trade"], parts["chain"], parts["house"],
                   parts["directional"], parts["street"], parts["suffix"], parts["unit_type"], parts["unit"],
                   parts["town"], parts["postcode"], u, k)
@@ -395,7 +468,8 @@ def register_scenario(rng: np.random.Generator, register_rows: int, matched: int
                       chain_share: float) -> dict[str, pd.DataFrame]:
     """The register and ``matched + unmatched`` survey establishments (see ``make_register_scenario``)."""
     new_records = matched + unmatched
-    register, parts, chains = build_register(rng, register_rows, chain_share)
+    places = places_for(register_rows)
+    register, parts, chains = build_register(rng, register_rows, chain_share, places)
 
     # establishments on the register, larger ones more often in the survey (weighted sampling)
     keys = rng.exponential(size=register_rows) / (1.0 + parts["size"])
@@ -404,20 +478,20 @@ def register_scenario(rng: np.random.Generator, register_rows: int, matched: int
 
     # employers not on the register: new single sites, and new branches of register chains
     branches = int(round(CHAIN_HARD_NEGATIVE_SHARE * unmatched)) if len(chains["sizes"]) else 0
-    address = addresses(rng, unmatched)
-    single = independent_employers(rng, unmatched - branches, address["town"][branches:])
+    address = addresses(rng, unmatched, places)
+    single = independent_employers(rng, unmatched - branches, address["town"][branches:], places)
     chain = draw_weighted(rng, chains["sizes"].astype(float), branches) if branches else np.zeros(0, np.int64)
     branch = {"core": chains["names"][chain], "legal": chains["legal"][chain],
           "trade": np.full(branches, "", dtype=object), "industry": chains["industry"][chain], "chain": chain}
     fresh = {**join(branch, single), **address}
-    separate_branches(rng, fresh, taken=parts)
+    separate_branches(rng, fresh, taken=parts, n_places=len(places))
     fresh["size"] = np.zeros(unmatched, dtype=np.int64)
     fresh["register_id"] = np.full(unmatched, "", dtype=object)
 
     everyone = join(found, fresh)
     kinds = np.concatenate([np.where(found["chain"] >= 0, "on_register_branch", "on_register"),
                         np.where(np.arange(unmatched) < branches, "new_branch", "new_employer")]).astype(object)
-    records = establishment_records(rng, everyone)
+    records = establishment_records(rng, everyone, places)
     order = rng.permutation(new_records)
     record_id = identifiers("E", new_records)
     new = records.iloc[order].reset_index(drop=True)
