@@ -314,3 +314,34 @@ def test_neighbour_search_in_small_product_blocks_finds_the_same_pairs(monkeypat
         monkeypatch.setattr(blocking, "PRODUCT_ENTRIES", 500)
         pd.testing.assert_frame_equal(cut, whole)
         assert cut.attrs == whole.attrs and len(cut) > len(new)
+
+
+def test_partitions_that_do_not_fit_together_are_read_once_per_batch(tmp_path, data, one_core, monkeypatch):
+    # Reference: the pairs and features of the index in one piece. With a cache of 2,000 rows a
+    # batch needing all five partitions reads them a few at a time, each once (before, every slice
+    # and then the comparisons read them again, evicting each other).
+    from titlematch.linking import partitions
+    from titlematch.linking.blocking import default_rules
+    from titlematch.linking.scoring import pairs_and_features
+    index, _ = one_core
+    index.save(tmp_path / "index", partition_rows=1_000)
+    loaded = RegisterIndex.load(tmp_path / "index", cache_rows=2_000)
+    groups = loaded.partition_groups(range(5))
+    assert [k for g in groups for k in g] == list(range(5)) and 1 < len(groups) < 5
+    assert all(sum(len(loaded.partition(k)) for k in g) <= 2_000 for g in groups if len(g) > 1)
+    reads = []
+    original = partitions.RegisterPartition.read.__func__
+    monkeypatch.setattr(partitions.RegisterPartition, "read",
+                        classmethod(lambda cls, d, sha: reads.append(d.name) or original(cls, d, sha)))
+    rules = default_rules(loaded.fields_)  # the whole-register search: every partition, every batch
+    whole_prepared = index.prepare(data["new"])
+    expected = pairs_and_features(whole_prepared, index, rules, workers=1)
+    prepared = loaded.prepare(data["new"])
+    pairs_and_features(prepared, loaded, rules, workers=1)  # the first batch also counts block sizes
+    reads.clear()
+    for workers in (1, 2):
+        pairs, features = pairs_and_features(prepared, loaded, rules, workers=workers)
+        pd.testing.assert_frame_equal(pairs, expected[0])
+        pd.testing.assert_frame_equal(features, expected[1])
+        assert pairs.attrs["rules"] == expected[0].attrs["rules"]
+    assert sorted(reads) == sorted(2 * [f"part-0000{k}" for k in range(5)])  # once per batch each

@@ -230,6 +230,18 @@ def block_sizes(index: RegisterIndex, rule, partitions=None) -> tuple[np.ndarray
     batch has is in them, so those keys' counts are exact."""
     cache = index.__dict__.setdefault("_block_sizes", {})
     key = (type(rule).__name__, rule.columns if isinstance(rule, KeyRule) else (rule.within, rule.max_share))
+    # the last union of counts per rule is kept too: every batch of a run needs (nearly) the same
+    # partitions, and their union is the size of the register
+    merged = index.__dict__.setdefault("_block_sizes_merged", {})
+    scope = None if partitions is None else tuple(int(k) for k in partitions)
+    if key in merged and merged[key][0] == scope:
+        return merged[key][1]
+    result = _block_sizes(index, rule, partitions, cache, key)
+    merged[key] = (scope, result)
+    return result
+
+
+def _block_sizes(index: RegisterIndex, rule, partitions, cache: dict, key) -> tuple[np.ndarray, np.ndarray]:
     found = []
     for k in (range(index.n_partitions) if partitions is None else partitions):
         if (key, int(k)) not in cache:
@@ -536,15 +548,31 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
     DataFrame with int64 columns ``new`` and ``register`` (positions in the whole register),
     sorted; ``attrs["rules"]`` holds the pairs each rule found and the keys skipped for size.
     """
+    found, skipped = partition_candidates(new, index, rules, new_chars=new_chars, new_words=new_words,
+                                          max_block=max_block, max_postings=max_postings, chunk=chunk,
+                                          self_join=self_join)
+    return union_candidates(found, skipped, rules, len(index), self_join=self_join)
+
+
+def partition_candidates(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
+                         new_chars: sp.csr_matrix | None = None, new_words: sp.csr_matrix | None = None,
+                         max_block: int = 100, max_postings: int | None = None, chunk: int = 2000,
+                         self_join: bool = False, partitions=None, scope=None) -> tuple[dict, dict]:
+    """Each rule's pairs in each partition the batch needs (or only those of them in ``partitions``),
+    before they are put together: ``({rule name: [(new rows, register positions[, similarities]),
+    ...]}, {rule name: keys skipped for size})``. Block sizes are counted over every partition the
+    batch needs, whichever are read here, so a batch read a few partitions at a time finds the same
+    pairs (``union_candidates`` puts the pieces together). ``scope``: the partitions the whole
+    batch needs, when ``new`` is a slice of it (block sizes are then counted over the same
+    partitions in every slice, and their union is kept on the index once)."""
     new = new.reset_index(drop=True)
     if new_chars is None or new_words is None:
         new_chars, new_words = index.vectorize(new["text"])
     if max_postings is None:
         max_postings = default_max_postings(index)
-    n_register = len(index)
     keep = index.char_postings_ <= max_postings
     query = blocking_matrix(new_chars, keep)
-    scope = needed_partitions(new, index, rules)
+    scope = needed_partitions(new, index, rules) if scope is None else np.asarray(scope, dtype=np.int64)
     # What each rule needs about the new records, and which of their keys are over the limit.
     state, skipped = {}, {}
     for rule in rules:
@@ -562,6 +590,8 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
             skipped[rule.name] = 0
         else:
             raise TypeError(f"unknown blocking rule {rule!r}")
+    if partitions is not None:
+        scope = np.intersect1d(scope, np.asarray(list(partitions), dtype=np.int64))
     found: dict[str, list] = {rule.name: [] for rule in rules}
     for p in scope:
         part = index.partition(int(p))
@@ -577,6 +607,14 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
                 i, j, s = _neighbour_pairs(rule, new, new_chars, query, part, keep, max_postings, chunk,
                                            rule.k + (1 if self_join else 0))
                 found[rule.name].append((i, part.positions_[j], s))
+    return found, skipped
+
+
+def union_candidates(found: dict, skipped: dict, rules: Sequence, n_register: int, *,
+                     self_join: bool = False) -> pd.DataFrame:
+    """The pairs of ``partition_candidates``'s pieces (from one call, or several over other
+    partitions, rows numbered in one batch) as ``candidate_pairs`` returns them: the nearest names
+    chosen over every piece, each rule's pairs made unique, the rules' union sorted."""
     report, codes = {}, []
     for rule in rules:
         got = found[rule.name]
@@ -584,7 +622,7 @@ def candidate_pairs(new: pd.DataFrame, index: RegisterIndex, rules: Sequence, *,
         j = np.concatenate([g[1] for g in got]) if got else np.empty(0, dtype=np.int64)
         if isinstance(rule, NeighbourRule) and len(got) > 1:  # the nearest over all partitions
             i, j, _ = best_k(i, j, np.concatenate([g[2] for g in got]), rule.k + (1 if self_join else 0))
-        code = i * n_register + j
+        code = i.astype(np.int64) * n_register + j
         if self_join:
             code = np.minimum(i, j) * n_register + np.maximum(i, j)
             code = code[i != j]

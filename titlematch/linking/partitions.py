@@ -160,6 +160,21 @@ class PartitionStore:
             self.get(k)
         return True
 
+    def groups(self, ks) -> list[list[int]]:
+        """``ks`` cut, in order, into groups that fit the cache together (a partition larger than
+        the cache is a group of its own)."""
+        out: list[list[int]] = []
+        rows = 0
+        for k in (int(k) for k in ks):
+            size = self.entries[k]["rows"]
+            if out and rows + size <= self.cache_rows:
+                out[-1].append(k)
+                rows += size
+            else:
+                out.append([k])
+                rows = size
+        return out
+
     def __getstate__(self) -> dict:
         # Sent to a Dask worker: the worker reads the partitions itself, from the same directory.
         state = dict(self.__dict__)

@@ -442,6 +442,12 @@ class RegisterIndex:
         """Read these partitions now if they fit the cache together; True if they are all in memory."""
         return self._store.preload(partitions) if self._store is not None else True
 
+    def partition_groups(self, partitions) -> list[list[int]]:
+        """``partitions`` in groups that fit the partition cache together (one group for an index
+        in memory)."""
+        ks = [int(k) for k in partitions]
+        return self._store.groups(ks) if self._store is not None else [ks]
+
     def partitions_holding(self, column: str, values) -> np.ndarray | None:
         """The partitions holding register records with these values of a routing column
         (``partitions.routing_columns``); None when the index cannot tell (saved without the table)."""
