@@ -84,6 +84,7 @@ def main(argv=None) -> int:
     parser.add_argument("--chunk-rows", type=int, default=50_000, help="records per chunk of 'link'")
     parser.add_argument("--blocking", choices=("default", "regional"), default="regional")
     parser.add_argument("--workers", type=int, default=-1)
+    parser.add_argument("--cache-rows", type=int, default=None, help="'link --cache-rows' (default: the command's)")
     parser.add_argument("--dask", action="store_true", help="also link with the Dask engine, 2 workers")
     parser.add_argument("--skip-register", action="store_true", help="reuse the index in --dir")
     args = parser.parse_args(argv)
@@ -109,6 +110,8 @@ def main(argv=None) -> int:
               f"row); {rows / wall:,.0f} rows/s", flush=True)
     link = ["link", str(work / "new.parquet"), "--register", str(work / "index"), "--blocking", args.blocking,
             "--chunk-rows", str(args.chunk_rows), "--restart", *common]
+    if args.cache_rows:
+        link += ["--cache-rows", str(args.cache_rows)]
     wall, peak = command([*link, "--out", str(work / "local.parquet")], env)
     result = score(pd.read_parquet(work / "local.parquet"), truth)
     a, acc = result["all"], result["accepted"]

@@ -71,6 +71,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                              "larger than memory); records whose postcode and place are both wrong are then "
                              "not found (default: 'default', which also searches the whole register)")
     add_workers_argument(parser)
+    parser.add_argument("--cache-rows", type=int, default=None, metavar="N",
+                        help="register rows of a partitioned index kept in memory while linking (default "
+                             "4000000); a chunk whose partitions hold more reads them a few at a time, each "
+                             "once per chunk. The output is the same for any value")
     parser.add_argument("--register-fields", metavar="ROLE=COLUMN,...",
                         help="register column names when they differ from the records' (same syntax as --fields)")
     parser.add_argument("--id-col", default="register_id", help="register id column (default register_id)")
@@ -91,12 +95,15 @@ def _fields(args):
 
 
 def load_register(args, fields, rejects):
-    from ..io import read_table
+    from ..io import InputError, read_table
     from ..linking.register import RegisterIndex
 
     path = Path(args.register)
     if path.is_dir():
-        index = RegisterIndex.load(path)
+        cache_rows = getattr(args, "cache_rows", None)
+        if cache_rows is not None and cache_rows < 1:
+            raise InputError(f"--cache-rows: expected a positive number, got {cache_rows}")
+        index = RegisterIndex.load(path, **({} if cache_rows is None else {"cache_rows": cache_rows}))
         columns = parse_fields(args.fields)
         index.fields_ = [replace(f, column=columns.get(f.name, f.column)) for f in index.fields_]
         return index

@@ -173,8 +173,10 @@ def _checked_manifest(directory: Path, kind: str) -> dict:
     return manifest
 
 
-def load_artefact(directory: str | os.PathLike, kind: str) -> Artefact:
-    """Load and verify an artefact of ``kind``; raise ``ArtefactError`` naming the offending file."""
+def load_artefact(directory: str | os.PathLike, kind: str, arrow_tables=()) -> Artefact:
+    """Load and verify an artefact of ``kind``; raise ``ArtefactError`` naming the offending file.
+    Tables named in ``arrow_tables`` keep Arrow's columns (``pd.ArrowDtype``): a text column of
+    millions of rows then takes its bytes and offsets, not a Python string object per value."""
     directory = Path(directory)
     manifest = _checked_manifest(directory, kind)
     tables, arrays = {}, {}
@@ -186,7 +188,8 @@ def load_artefact(directory: str | os.PathLike, kind: str) -> Artefact:
             raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
         try:
             if name.endswith(".parquet"):
-                table = pd.read_parquet(path)
+                arrow = name[: -len(".parquet")] in arrow_tables
+                table = pd.read_parquet(path, dtype_backend="pyarrow") if arrow else pd.read_parquet(path)
                 if "rows" in info and len(table) != info["rows"]:
                     raise ArtefactError(f"{path}: {len(table)} rows; the manifest says {info['rows']}")
                 tables[name[: -len(".parquet")]] = table

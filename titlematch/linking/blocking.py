@@ -275,40 +275,61 @@ def _register_keys(part, columns: Sequence[str]) -> np.ndarray:
     return _keys(part.prepared_, columns)
 
 
+def _column_hashes(prepared: pd.DataFrame, columns: Sequence[str]) -> tuple[np.ndarray, np.ndarray]:
+    """(64-bit hash of each row's values of ``columns``, rows where every one is non-empty): the key
+    of ``_keys`` without writing it out (each distinct value hashed once, the hashes combined)."""
+    present = np.ones(len(prepared), dtype=bool)
+    combined = None
+    for column in columns:
+        values = prepared[column].fillna("").astype(str).to_numpy(dtype=object)
+        present &= values != ""
+        hashed = _hash(values)
+        combined = hashed if combined is None else pd.util.hash_array(combined * _MIX ^ hashed)
+    if combined is None:
+        combined = np.zeros(len(prepared), dtype=np.uint64)
+    return combined, present
+
+
 class _KeyGroups:
     """The rows of a partition grouped by their key for some columns, built once per partition (a
-    batch then costs its own records, not the partition's): the distinct non-empty keys, and the
-    rows of key ``c`` are ``order[starts[c]: starts[c] + counts[c]]`` (ascending)."""
+    batch then costs its own records, not the partition's): the distinct non-empty keys' 64-bit
+    hashes (sorted), and the rows of key ``c`` are ``order[starts[c]: starts[c] + counts[c]]``
+    (ascending). Hashes rather than the keys' text: about 20 bytes a row instead of a string and a
+    hash-table entry (a collision, about one in 10^6 at 10 million keys, would add one block's
+    pairs, which the comparisons then score)."""
 
-    def __init__(self, keys: np.ndarray) -> None:
-        codes, uniques = pd.factorize(keys)
-        empty = np.flatnonzero(uniques == "")
-        if len(empty):  # the empty key is no key: its rows join nothing
-            codes = np.where(codes == empty[0], -1, np.where(codes > empty[0], codes - 1, codes))
-            uniques = np.delete(uniques, empty[0])
-        self.keys = pd.Index(uniques, dtype=object)
-        present = codes >= 0
-        self.order = np.flatnonzero(present)[np.argsort(codes[present], kind="stable")]
-        self.counts = np.bincount(codes[present], minlength=len(uniques)).astype(np.int64)
-        self.starts = np.cumsum(self.counts) - self.counts
+    def __init__(self, hashes: np.ndarray, present: np.ndarray | None = None) -> None:
+        rows = np.flatnonzero(present) if present is not None else np.arange(len(hashes))
+        hashes = np.asarray(hashes, dtype=np.uint64)[rows]
+        order = np.argsort(hashes, kind="stable")
+        self.keys, starts, counts = np.unique(hashes[order], return_index=True, return_counts=True)
+        small = np.int32 if len(rows) < 2 ** 31 else np.int64
+        self.order = rows[order].astype(small)
+        self.starts, self.counts = starts.astype(small), counts.astype(small)
 
-    def codes(self, keys: np.ndarray) -> np.ndarray:
+    def codes(self, hashes: np.ndarray, present: np.ndarray | None = None) -> np.ndarray:
         """Code of each key: -1 for an empty key, ``len(self.keys)`` for a key no row has."""
-        codes = self.keys.get_indexer(keys) if len(self.keys) else np.full(len(keys), -1)
-        codes = np.where(codes < 0, len(self.keys), codes).astype(np.int64)
-        codes[keys == ""] = -1
+        hashes = np.asarray(hashes, dtype=np.uint64)
+        n = len(self.keys)
+        if n:
+            at = np.minimum(np.searchsorted(self.keys, hashes), n - 1)
+            codes = np.where(self.keys[at] == hashes, at, n).astype(np.int64)
+        else:
+            codes = np.zeros(len(hashes), dtype=np.int64)
+        if present is not None:
+            codes[~present] = -1
         return codes
 
     def members(self, code: int) -> np.ndarray:
         if not 0 <= code < len(self.keys):
             return np.empty(0, dtype=np.int64)
-        return self.order[self.starts[code]: self.starts[code] + self.counts[code]]
+        return self.order[self.starts[code]: self.starts[code] + self.counts[code]].astype(np.int64)
 
     def pairs(self, new_rows: np.ndarray, new_codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Every (new row, partition row) with equal keys."""
         found = (new_codes >= 0) & (new_codes < len(self.keys))
         rows, codes = new_rows[found], new_codes[found]
-        ct, st = self.counts[codes], self.starts[codes]
+        ct, st = self.counts[codes].astype(np.int64), self.starts[codes].astype(np.int64)
         offsets = np.arange(int(ct.sum())) - np.repeat(np.cumsum(ct) - ct, ct)
         return np.repeat(rows, ct).astype(np.int64), self.order[np.repeat(st, ct) + offsets].astype(np.int64)
 
@@ -316,7 +337,7 @@ class _KeyGroups:
 def _key_groups(part, columns: Sequence[str]) -> _KeyGroups:
     cache = part.__dict__.setdefault("_key_groups", {})
     if tuple(columns) not in cache:
-        cache[tuple(columns)] = _KeyGroups(_register_keys(part, columns))
+        cache[tuple(columns)] = _KeyGroups(*_column_hashes(part.prepared_, columns))
     return cache[tuple(columns)]
 
 
@@ -324,7 +345,7 @@ def _key_pairs(rule: KeyRule, new: pd.DataFrame, part, too_large: np.ndarray):
     """Pairs of a key rule between ``new`` and one partition; ``too_large`` marks new rows whose block
     is over the limit in the whole register."""
     groups = _key_groups(part, rule.columns)
-    codes = groups.codes(_keys(new, rule.columns))
+    codes = groups.codes(*_column_hashes(new, rule.columns))
     codes[too_large] = -1
     return groups.pairs(np.arange(len(new)), codes)
 
@@ -440,7 +461,7 @@ def _neighbour_pairs(rule: NeighbourRule, new: pd.DataFrame, new_chars: sp.csr_m
     groups = [(np.arange(len(new)), None)]
     if rule.within:
         regions = _key_groups(part, [rule.within])
-        new_region = regions.codes(_keys(new, [rule.within]))
+        new_region = regions.codes(*_column_hashes(new, [rule.within]))
         outside = [(np.flatnonzero(new_region < 0), None)] if rule.outside else []
         order = np.argsort(new_region, kind="stable")
         codes, starts, counts = np.unique(new_region[order], return_index=True, return_counts=True)

@@ -53,10 +53,15 @@ class _Pairs:
     def equal(self, column: str, transform=None) -> np.ndarray:
         """1.0 where the pair's values are equal, 0.0 where different, NaN where either is empty."""
         def register_codes():
-            values = self.register[column].astype(str)
+            # Each distinct value is converted and transformed once (a partition holds a million
+            # rows and a few thousand NAICS codes); codes as int32, kept for every batch.
+            raw_codes, raw = pd.factorize(self.register[column].to_numpy(dtype=object), use_na_sentinel=False)
+            values = pd.Series(raw, dtype=object).astype(str)
             values = transform(values) if transform else values
-            codes, uniques = pd.factorize(values.to_numpy(dtype=object))
-            return codes, pd.Index(uniques), (values == "").to_numpy()
+            mapping, uniques = pd.factorize(values.to_numpy(dtype=object))
+            small = np.int32 if len(uniques) < 2 ** 31 else np.int64
+            return (mapping.astype(small)[raw_codes], pd.Index(uniques),
+                    (values == "").to_numpy()[raw_codes])
         codes, uniques, register_empty = self._register_cached(("codes", column, transform), register_codes)
         values = self.new[column].astype(str)
         values = transform(values) if transform else values

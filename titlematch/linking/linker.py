@@ -320,7 +320,7 @@ class EstablishmentLinker(BaseEstimator):
             training[self.id_column] = labels
         training = training.reset_index(drop=True)
         labels = training[self.id_column].fillna("").astype(str).str.strip()
-        position = pd.Series(np.arange(len(self.index_)), index=self.index_.ids_)
+        position = pd.Series(np.arange(len(self.index_)), index=np.asarray(self.index_.ids_, dtype=object))
         unknown = (labels != "") & ~labels.isin(position.index)
         if unknown.any():
             raise InputError(f"training: {int(unknown.sum())} register id(s) not in the register, "
@@ -437,15 +437,14 @@ class EstablishmentLinker(BaseEstimator):
             decision = np.where(lost, "no-match", decision)
         linked = decision != "no-match"
         at = register[np.maximum(best, 0)]
-        ids = np.where(has & linked, self.index_.ids_[at], "")
-        display = self.index_.display_
+        ids = np.where(has & linked, self.index_.ids_at(at), "")
         result["register_id"] = ids
         result["confidence"] = np.round(conf, 4)
         result["decision"] = decision
-        result["register_name"] = np.where(has & linked, display["register_name"].to_numpy()[at], "")
-        result["register_address"] = np.where(has & linked, display["register_address"].to_numpy()[at], "")
+        result["register_name"] = np.where(has & linked, self.index_.display_at("register_name", at), "")
+        result["register_address"] = np.where(has & linked, self.index_.display_at("register_address", at), "")
         has2 = second >= 0
-        result["register_id_2"] = np.where(has2, self.index_.ids_[register[np.maximum(second, 0)]], "")
+        result["register_id_2"] = np.where(has2, self.index_.ids_at(register[np.maximum(second, 0)]), "")
         result["confidence_2"] = np.where(has2, np.round(confidence[np.maximum(second, 0)], 4), np.nan)
         text = np.full(n, "", dtype=object)
         text[has] = explain(weights.iloc[best[has]])
