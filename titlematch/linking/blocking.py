@@ -227,17 +227,36 @@ def block_sizes(index: RegisterIndex, rule, partitions=None) -> tuple[np.ndarray
     (default every partition); each partition's count is kept on the index, so a chunked run
     counts it once. A rule that pairs only within a postcode or place needs only the partitions
     holding the batch's postcodes or places (``needed_partitions``): every record of a key the
-    batch has is in them, so those keys' counts are exact."""
+    batch has is in them, so those keys' counts are exact. Once counted over every partition, the
+    keys held by one record are left out (a key not found is then a block of at most one)."""
+    return _counts(index, rule, partitions, keep_single=False)
+
+
+def _counts(index: RegisterIndex, rule, partitions, keep_single: bool) -> tuple[np.ndarray, np.ndarray]:
     cache = index.__dict__.setdefault("_block_sizes", {})
     key = (type(rule).__name__, rule.columns if isinstance(rule, KeyRule) else (rule.within, rule.max_share))
-    # the last union of counts per rule is kept too: every batch of a run needs (nearly) the same
-    # partitions, and their union is the size of the register
+    # Counted over every partition, a rule's blocks serve any batch: a key of a rule confined to a
+    # postcode or place has all its records in the partitions holding that value, so its count is
+    # the same over any partitions that hold them. Those counts are kept for the run without the
+    # keys held once (about 16 bytes a key of the register: most address keys are unique), and the
+    # partitions' own counts are let go.
+    whole = index.__dict__.setdefault("_block_sizes_whole", {})
+    if key in whole and not keep_single:
+        return whole[key]
+    every = partitions is None or len({int(k) for k in partitions}) == index.n_partitions
     merged = index.__dict__.setdefault("_block_sizes_merged", {})
     scope = None if partitions is None else tuple(int(k) for k in partitions)
-    if key in merged and merged[key][0] == scope:
+    if not every and key in merged and merged[key][0] == scope:
         return merged[key][1]
     result = _block_sizes(index, rule, partitions, cache, key)
-    merged[key] = (scope, result)
+    if every and index.n_partitions > 1:
+        several = result[1] > 1
+        whole[key] = (result[0][several], result[1][several])
+        for k in range(index.n_partitions):
+            cache.pop((key, k), None)
+        merged.pop(key, None)
+    else:
+        merged[key] = (scope, result)
     return result
 
 
@@ -261,7 +280,8 @@ def _block_sizes(index: RegisterIndex, rule, partitions, cache: dict, key) -> tu
 
 
 def _oversized(index: RegisterIndex, rule, hashes: np.ndarray, max_block: int, partitions=None) -> np.ndarray:
-    keys, counts = block_sizes(index, rule, partitions)
+    # without the keys held once, unless one register record is already too many
+    keys, counts = _counts(index, rule, partitions, keep_single=max_block < 1)
     if not len(keys):
         return np.zeros(len(hashes), dtype=bool)
     at = np.minimum(np.searchsorted(keys, hashes), len(keys) - 1)

@@ -173,11 +173,14 @@ class PartitionStore:
         return True
 
     def groups(self, ks) -> list[list[int]]:
-        """``ks`` cut, in order, into groups that fit the cache together (a partition larger than
-        the cache is a group of its own)."""
+        """``ks`` cut into groups that fit the cache together (a partition larger than the cache is
+        a group of its own), those in memory first: the next batch starts with what the last one
+        left, and reads the rest."""
+        ks = [int(k) for k in ks]
+        held = [k for k in self._cache if k in set(ks)]
         out: list[list[int]] = []
         rows = 0
-        for k in (int(k) for k in ks):
+        for k in held + [k for k in ks if k not in set(held)]:
             size = self.entries[k]["rows"]
             if out and rows + size <= self.cache_rows:
                 out[-1].append(k)
