@@ -107,7 +107,7 @@ def main(argv=None) -> int:
         wall, peak = command(["register", str(work / "register.parquet"), "--out", str(work / "index"),
                               "--partition-rows", str(args.partition_rows), *common], env)
         print(f"register: {wall:.0f} s, peak {peak:,.0f} MB ({peak * 2 ** 20 / rows:,.0f} bytes per register "
-              f"row); {rows / wall:,.0f} rows/s", flush=True)
+              f"row); {rows / wall:,.0f} rows/s; load average {os.getloadavg()[0]:.1f}", flush=True)
     link = ["link", str(work / "new.parquet"), "--register", str(work / "index"), "--blocking", args.blocking,
             "--chunk-rows", str(args.chunk_rows), "--restart", *common]
     if args.cache_rows:
