@@ -12,6 +12,7 @@ import numpy as np
 import scipy.sparse as sp
 from sklearn.feature_extraction.text import TfidfVectorizer
 
+from ..normalize.ngrams import char_wb_counts
 from ..runtime.pool import map_slices, resolve_workers, slices
 
 PARALLEL_ROWS = 2_000  # fewer rows per process than this are not worth a fork
@@ -46,8 +47,13 @@ def _count_slice(make, values: np.ndarray) -> tuple[sp.csr_matrix, np.ndarray]:
     vectorizer = make()
     if not any(values != ""):  # no text, no vocabulary (scikit-learn refuses an empty one)
         return sp.csr_matrix((len(values), 0), dtype=vectorizer.dtype), np.empty(0, dtype=str)
-    counts = super(TfidfVectorizer, vectorizer).fit_transform(values).tocsr()  # CountVectorizer's counts
-    counts.sort_indices()  # fit renumbers the terms in sorted order without re-sorting each row
+    if vectorizer.analyzer == "char_wb":
+        # each distinct word's n-grams counted once (normalize.ngrams): the same counts as the
+        # vectorizer's own, in its sorted vocabulary, rows sorted
+        counts = char_wb_counts(vectorizer, values, fit=True)
+    else:
+        counts = super(TfidfVectorizer, vectorizer).fit_transform(values).tocsr()  # CountVectorizer's counts
+        counts.sort_indices()  # fit renumbers the terms in sorted order without re-sorting each row
     terms = np.asarray(vectorizer.get_feature_names_out(), dtype=str)
     return counts, terms
 
