@@ -60,6 +60,7 @@ def command(args: list[str], env: dict | None = None) -> tuple[float, float]:
 
 
 def score(linked: pd.DataFrame, truth: pd.DataFrame) -> dict:
+    truth = truth[truth["record_id"].isin(linked["record_id"])]  # the records linked (all, or --records)
     expected = dict(zip(truth["record_id"], truth["register_id"]))
     n_true = sum(1 for v in expected.values() if v)
     out = {}
@@ -87,6 +88,8 @@ def main(argv=None) -> int:
     parser.add_argument("--cache-rows", type=int, default=None, help="'link --cache-rows' (default: the command's)")
     parser.add_argument("--dask", action="store_true", help="also link with the Dask engine, 2 workers")
     parser.add_argument("--skip-register", action="store_true", help="reuse the index in --dir")
+    parser.add_argument("--records", type=int, default=None,
+                        help="link only the first N records of the scenario's (written as new_N.parquet)")
     args = parser.parse_args(argv)
     work = Path(args.dir)
     env = dict(os.environ, PYTHONPATH=ROOT + os.pathsep + os.environ.get("PYTHONPATH", ""))
@@ -108,7 +111,12 @@ def main(argv=None) -> int:
                               "--partition-rows", str(args.partition_rows), *common], env)
         print(f"register: {wall:.0f} s, peak {peak:,.0f} MB ({peak * 2 ** 20 / rows:,.0f} bytes per register "
               f"row); {rows / wall:,.0f} rows/s; load average {os.getloadavg()[0]:.1f}", flush=True)
-    link = ["link", str(work / "new.parquet"), "--register", str(work / "index"), "--blocking", args.blocking,
+    records = work / "new.parquet"
+    if args.records:
+        records = work / f"new_{args.records}.parquet"
+        pd.read_parquet(work / "new.parquet").head(args.records).to_parquet(records, index=False, row_group_size=50_000)
+        truth = truth[truth["record_id"].isin(pd.read_parquet(records, columns=["record_id"])["record_id"])]
+    link = ["link", str(records), "--register", str(work / "index"), "--blocking", args.blocking,
             "--chunk-rows", str(args.chunk_rows), "--restart", *common]
     if args.cache_rows:
         link += ["--cache-rows", str(args.cache_rows)]
