@@ -301,9 +301,11 @@ def _column_hashes(prepared: pd.DataFrame, columns: Sequence[str]) -> tuple[np.n
     present = np.ones(len(prepared), dtype=bool)
     combined = None
     for column in columns:
-        values = prepared[column].fillna("").astype(str).to_numpy(dtype=object)
-        present &= values != ""
-        hashed = _hash(values)
+        # distinct values first: a partition's million rows hold far fewer (places, postcodes)
+        codes, uniques = pd.factorize(prepared[column].to_numpy(dtype=object), use_na_sentinel=False)
+        values = pd.Series(uniques, dtype=object).fillna("").astype(str).to_numpy(dtype=object)
+        present &= (values != "")[codes] if len(values) else np.ones(len(codes), dtype=bool)
+        hashed = pd.util.hash_array(values)[codes] if len(values) else np.zeros(len(codes), dtype=np.uint64)
         combined = hashed if combined is None else pd.util.hash_array(combined * _MIX ^ hashed)
     if combined is None:
         combined = np.zeros(len(prepared), dtype=np.uint64)
