@@ -348,3 +348,28 @@ def test_partitions_that_do_not_fit_together_are_read_once_per_batch(tmp_path, d
         assert pairs.attrs["rules"] == expected[0].attrs["rules"]
         # each at most once; those the last batch left in memory are used first, not read again
         assert len(reads) == len(set(reads)) and set(reads) == every - held and held
+
+
+def test_block_sizes_counted_once_over_the_register_skip_the_same_keys_for_any_batch(tmp_path, data, one_core):
+    # Reference: pandas' value_counts of the key over the whole register. Counted over every
+    # partition once (keys held by one record then left out), a later batch needing only some
+    # partitions, and any block limit down to 0, skips exactly the keys over the limit.
+    from titlematch.linking.blocking import KeyRule, _key_hashes, _keys, _oversized, needed_partitions
+    index, _ = one_core
+    columns = ("name.phonetic", "city.value")
+    rule = KeyRule("phonetic + place", columns)
+    counts = pd.Series(_keys(index.prepared_, columns)).value_counts()
+    index.save(tmp_path / "index", partition_rows=1_000)
+    loaded = RegisterIndex.load(tmp_path / "index")
+    new = loaded.prepare(data["new"])
+    _oversized(loaded, rule, np.empty(0, np.uint64), 100, range(loaded.n_partitions))  # every partition once
+    town = new[(new["city.value"] == new["city.value"].iloc[0]).to_numpy()].reset_index(drop=True)
+    scope = needed_partitions(town, loaded, [rule])
+    assert len(scope) < loaded.n_partitions
+    for batch, partitions in ((new, range(loaded.n_partitions)), (town, scope)):
+        keys = _keys(batch, columns)
+        rows, hashes = _key_hashes(keys)
+        size = counts.reindex(keys[rows]).fillna(0).to_numpy()
+        for limit in (0, 1, 2, 5):
+            assert np.array_equal(_oversized(loaded, rule, hashes, limit, partitions), size > limit)
+    assert (counts == 1).any() and (counts > 5).any()
