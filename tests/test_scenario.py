@@ -277,3 +277,13 @@ def test_write_scenario_writes_readable_csv_files(tmp_path):
     register = read_table(paths["register"])
     assert re.fullmatch(r"LR\d{7}", register["register_id"].iloc[0])
     assert np.isin(truth["register_id"][truth["register_id"] != ""], register["register_id"]).all()
+
+
+def test_chain_brands_do_not_run_out_for_a_national_register():
+    # A 10-million-row register has about 231,000 chains, more than the one-stem brands ("Ashbrook
+    # Pharmacy", about 90,000 with the chain-friendly trades): the generator then draws two stems
+    # ("Ashbrook Ridgefield Pharmacy") and every chain keeps a name of its own.
+    from titlematch.datasets._register import _unique_chain_names
+    names, industries = _unique_chain_names(np.random.default_rng(1), 120_000)
+    assert len(names) == len(set(names)) == len(industries) == 120_000
+    assert 0 < np.mean([name.count(" ") >= 2 and not name.split()[0].endswith("'s") for name in names]) < 1

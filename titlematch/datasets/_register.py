@@ -245,14 +245,21 @@ def _unique_chain_names(rng: np.random.Generator, count: int) -> tuple[np.ndarra
     flat, sampler, _ = _industry_tables()
     names = pd.Series([], dtype=object)
     industries = np.zeros(0, dtype=np.int64)
+    two_stems = False
     while len(names) < count:
+        before = len(names)
         industry = friendly[rng.integers(len(friendly), size=2 * count + 10)]
         brand = np.where(rng.random(len(industry)) < 0.8, _stems(rng, len(industry)),
                          choose(rng, vocab.SURNAMES, len(industry)) + "'s")
+        if two_stems:  # "Ashbrook Ridgefield": about 2 million brands more
+            brand = brand + " " + _stems(rng, len(industry))
         candidates = pd.Series(np.concatenate([names.to_numpy(), brand + " " + flat[sampler.draw(rng, industry)]]))
         industries = np.concatenate([industries, industry])
         keep = ~candidates.duplicated().to_numpy()
         names, industries = candidates[keep].reset_index(drop=True), industries[keep]
+        # The one-stem brands (about 90,000) run out above a few million register rows (200,000
+        # chains at 10 million): then two stems. Smaller registers never get here (unchanged).
+        two_stems = two_stems or len(names) - before < 0.01 * (count - before)
     return names.to_numpy(dtype=object)[:count], industries[:count]
 
 
