@@ -118,3 +118,36 @@ def test_accuracy_regression_on_a_fixed_seed_of_the_invented_scenario():
     accuracy = (coded["code"].to_numpy() == expert).mean()
     manual = (data["new_truth"]["manual_code"].to_numpy() == expert).mean()
     assert accuracy >= 0.94 and accuracy > manual
+
+
+def test_code_profile_features_match_a_count_over_the_dictionary():
+    # Past records: the O*NET-SOC 2019 occupation titles (O*NET database, CC BY 4.0) at the SOC 2018
+    # detailed level, each coded to its own occupation, plus the teachers above. The reference below
+    # is computed another way: plain Python over the dictionary's entries and scikit-learn's own
+    # TfidfVectorizer, against the index's sparse products.
+    from sklearn.feature_extraction.text import TfidfVectorizer
+    from titlematch.coding.linear import head_word
+
+    past = pd.concat([_teachers(), SOC.assign(context="")], ignore_index=True)
+    coder = TitleCoder().fit(past, past["code"], classification=SOC)
+    queries = ["school teacher", "truck driver", "marketing analyst", "chief of police", "zzyzx"]
+    feats = coder.features(pd.DataFrame({"title": queries}))
+    entries = coder.dictionary_.entries.groupby(["key", "code"])["weight"].sum()
+    keys = sorted(coder.dictionary_.entries["key"].unique())
+    tfidf = TfidfVectorizer(analyzer="word", token_pattern=r"\S+").fit(keys)
+    corrected = coder._units(pd.DataFrame({"title": queries}))[0]["corrected"].tolist()
+    for row in feats.itertuples():
+        q = corrected[row.record]
+        same_head = {(k, c): w for (k, c), w in entries.items() if head_word(k) == head_word(q)}
+        if same_head:
+            expected = sum(w for (k, c), w in same_head.items() if c == row.code) / (sum(same_head.values()) + 1.0)
+        else:
+            expected = -1.0
+        assert row.head_share == pytest.approx(expected, rel=1e-9), (q, row.code)
+        vec = tfidf.transform([q]).toarray().ravel()
+        words = {w for (k, c) in entries.index if c == row.code for w in k.split()}
+        covered = sum(vec[i] ** 2 for w, i in tfidf.vocabulary_.items() if w in words)
+        assert row.word_cover == pytest.approx(covered, abs=1e-6), (q, row.code)
+    assert set(feats.loc[feats["record"] == 4, "head_share"]) <= {-1.0}  # a head word never seen
+    driver = feats[(feats["record"] == 1) & (feats["code"] == "53-3032")]
+    assert driver["head_share"].iloc[0] > 0.3 and driver["word_cover"].iloc[0] == pytest.approx(1.0, abs=1e-6)

@@ -17,7 +17,7 @@ from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 
 from ..io.artefact import ArtefactError, csr_arrays, csr_from
 from .dictionary import TitleDictionary
-from .linear import LinearTitleModel
+from .linear import LinearTitleModel, head_word
 from ..normalize.ngrams import char_wb_counts, tfidf_weights
 from ..normalize.spelling import SpellingCorrector
 
@@ -121,6 +121,7 @@ class TitleIndex:
         self.char_matrix_ = tfidf_weights(counts, self.char_vectorizer_.idf_).T.tocsr()
         self.word_matrix_ = self.word_vectorizer_.fit_transform(self.keys_).T.tocsr()
         self._fit_groups(dictionary)
+        self._fit_code_profiles()
         self._fit_classifier(dictionary)
         self.corrector_ = _corrector(dictionary)
         return self
@@ -132,6 +133,20 @@ class TitleIndex:
         self.code_group_ = pd.Index(self.groups_).get_indexer(parents).astype(np.int64)
         self.group_matrix_ = sp.csr_matrix((np.ones(len(parents)), (np.arange(len(parents)), self.code_group_)),
                                            shape=(len(parents), len(self.groups_)))
+
+    def _fit_code_profiles(self) -> None:
+        """What each code's dictionary titles say as a whole, derived from the keys (nothing saved):
+        the codes of the titles sharing each head word (``head_codes_``), since the head noun carries
+        the occupation, and the words any of the code's titles use (``code_words_``, 0/1)."""
+        heads = pd.Index([head_word(k) for k in self.keys_])
+        self.head_of_ = {h: i for i, h in enumerate(heads.unique())}
+        key_head = np.fromiter((self.head_of_[h] for h in heads), dtype=np.int64, count=len(heads))
+        to_head = sp.csr_matrix((np.ones(len(key_head)), (key_head, np.arange(len(key_head)))),
+                                shape=(len(self.head_of_), len(self.keys_)))
+        self.head_codes_ = (to_head @ self.key_codes_).tocsr()
+        self.head_total_ = np.asarray(self.head_codes_.sum(axis=1)).ravel()
+        uses = self.key_codes_.T.tocsr().astype(bool).astype(np.float32)
+        self.code_words_ = ((uses @ self.word_matrix_.T.astype(bool).astype(np.float32)) > 0).astype(np.float32).tocsr()
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
         key_pos = pd.Index(self.keys_).get_indexer(entries["key"])
@@ -199,6 +214,7 @@ class TitleIndex:
         else:
             self._fit_key_matrices()
         self._fit_groups(dictionary)
+        self._fit_code_profiles()
         self.linear_ = LinearTitleModel.restore(arrays, linear, "linear_")
         self.classifier_classes_ = arrays["classifier_classes"]
         if spelling is not None and "spelling_hashes" in arrays:  # saved with the dictionary: not rebuilt

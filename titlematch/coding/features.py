@@ -14,12 +14,13 @@ from rapidfuzz import distance, fuzz, process
 
 from .candidates import TitleIndex
 from .dictionary import context_tokens
+from .linear import head_word
 
 FEATURES = [
     "exact", "exact_corrected", "via_role", "sim_char", "sim_word", "ratio", "token_set_ratio", "partial_ratio",
     "jaro_winkler", "share", "share_evidence", "log_exact_weight", "support", "log_key_weight", "log_code_weight", "code_prior", "ctx_share",
     "ctx_global", "has_context", "ctx_known", "clf_prob", "clf_rank", "clf_group_prob", "group_support",
-    "official", "n_changes",
+    "official", "n_changes", "head_share", "word_cover",
     "spelling_changed", "n_roles", "n_tokens", "n_codes", "score", "score_gap", "rank",
 ]
 MAX_CANDIDATES = 10
@@ -211,6 +212,7 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     tokens.index = np.arange(len(units))
     code_total = np.asarray(index.key_codes_.sum(axis=0)).ravel()
     cands["code_prior_share"] = code_total[cands["code"].to_numpy()] / code_total.sum()
+    _profile_features(cands, index, qtext, qw)
     ctx_feats = _context_features(cands, tokens, ctx).reindex(cands["row"])
     cands["ctx_share"] = ctx_feats["ctx_share"].to_numpy()
     cands["ctx_global"] = ctx_feats["ctx_global"].to_numpy()
@@ -263,6 +265,24 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
     cands["code"] = code_strings
     cands["key"] = key_text
     return cands[["unit", "code", "key"] + FEATURES]
+
+
+def _profile_features(cands: pd.DataFrame, index: TitleIndex, qtext: np.ndarray, qw: sp.csr_matrix) -> None:
+    """Evidence from all of a code's dictionary titles, not only the best one behind it: the code's
+    share among titles with the query's head word (``head_share``, one record of doubt added; -1 for
+    a head word the dictionary never had) and the part of the query's word TF-IDF mass that the
+    code's titles use (``word_cover``)."""
+    q = cands["query"].to_numpy(np.int64)
+    c = cands["code"].to_numpy(np.int64)
+    head = np.array([index.head_of_.get(head_word(t), -1) for t in qtext], dtype=np.int64)[q]
+    known = head >= 0
+    share = np.full(len(cands), -1.0)
+    if known.any():
+        hits = np.asarray(index.head_codes_[head[known], c[known]]).ravel()
+        share[known] = hits / (index.head_total_[head[known]] + 1.0)
+    cands["head_share"] = share
+    squared = qw.multiply(qw).tocsr()
+    cands["word_cover"] = _pairwise_cosine(squared[q], index.code_words_[c]) if len(cands) else 0.0
 
 
 def _repeat_for_units(table: pd.DataFrame, owner_of_unit: np.ndarray, by: str = "query") -> pd.DataFrame:
