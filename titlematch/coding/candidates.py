@@ -136,17 +136,23 @@ class TitleIndex:
 
     def _fit_code_profiles(self) -> None:
         """What each code's dictionary titles say as a whole, derived from the keys (nothing saved):
-        the codes of the titles sharing each head word (``head_codes_``), since the head noun carries
-        the occupation, and the words any of the code's titles use (``code_words_``, 0/1)."""
+        the codes of the titles sharing each head word (``head_code_keys_``), since the head noun carries
+        the occupation, and the words any of the code's titles use (``code_word_keys_``)."""
         heads = pd.Index([head_word(k) for k in self.keys_])
         self.head_of_ = {h: i for i, h in enumerate(heads.unique())}
         key_head = np.fromiter((self.head_of_[h] for h in heads), dtype=np.int64, count=len(heads))
         to_head = sp.csr_matrix((np.ones(len(key_head)), (key_head, np.arange(len(key_head)))),
                                 shape=(len(self.head_of_), len(self.keys_)))
-        self.head_codes_ = (to_head @ self.key_codes_).tocsr()
-        self.head_total_ = np.asarray(self.head_codes_.sum(axis=1)).ravel()
+        head_codes = (to_head @ self.key_codes_).tocoo()
+        self.head_total_ = np.bincount(head_codes.row, weights=head_codes.data, minlength=len(self.head_of_))
+        # as sorted (head x codes + code) numbers with their weights: looked up by searchsorted
+        order = np.argsort(head_codes.row.astype(np.int64) * len(self.codes_) + head_codes.col, kind="stable")
+        self.head_code_keys_ = head_codes.row[order].astype(np.int64) * len(self.codes_) + head_codes.col[order]
+        self.head_code_weights_ = head_codes.data[order]
         uses = self.key_codes_.T.tocsr().astype(bool).astype(np.float32)
-        self.code_words_ = ((uses @ self.word_matrix_.T.astype(bool).astype(np.float32)) > 0).astype(np.float32).tocsr()
+        code_words = (uses @ self.word_matrix_.T.astype(bool).astype(np.float32)).tocoo()
+        # as sorted (code x words + word) numbers: a candidate's words are looked up, never its code's row
+        self.code_word_keys_ = np.unique(code_words.row.astype(np.int64) * code_words.shape[1] + code_words.col)
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
         key_pos = pd.Index(self.keys_).get_indexer(entries["key"])

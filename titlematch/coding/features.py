@@ -276,13 +276,25 @@ def _profile_features(cands: pd.DataFrame, index: TitleIndex, qtext: np.ndarray,
     c = cands["code"].to_numpy(np.int64)
     head = np.array([index.head_of_.get(head_word(t), -1) for t in qtext], dtype=np.int64)[q]
     known = head >= 0
-    share = np.full(len(cands), -1.0)
-    if known.any():
-        hits = np.asarray(index.head_codes_[head[known], c[known]]).ravel()
-        share[known] = hits / (index.head_total_[head[known]] + 1.0)
-    cands["head_share"] = share
+    found, at = _lookup(index.head_code_keys_, head * len(index.codes_) + c)
+    weight = np.where(found & known, index.head_code_weights_[at] if len(at) else 0.0, 0.0)
+    cands["head_share"] = np.where(known, weight / (index.head_total_[np.maximum(head, 0)] + 1.0), -1.0)
+    # each candidate's query words, looked up among its code's words (a code's own row of words may
+    # hold thousands: taking it per candidate would cost memory in proportion)
     squared = qw.multiply(qw).tocsr()
-    cands["word_cover"] = _pairwise_cosine(squared[q], index.code_words_[c]) if len(cands) else 0.0
+    counts = np.diff(squared.indptr)[q]
+    owner = np.repeat(np.arange(len(cands)), counts)
+    nz = np.repeat(squared.indptr[q], counts) + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
+    hit, _ = _lookup(index.code_word_keys_, c[owner] * squared.shape[1] + squared.indices[nz])
+    cands["word_cover"] = np.bincount(owner, weights=np.where(hit, squared.data[nz], 0.0), minlength=len(cands))
+
+
+def _lookup(keys: np.ndarray, wanted: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Whether each ``wanted`` number is in the sorted ``keys``, and where (clipped when not)."""
+    if not len(keys):
+        return np.zeros(len(wanted), dtype=bool), np.zeros(len(wanted), dtype=np.int64)
+    at = np.minimum(np.searchsorted(keys, wanted), len(keys) - 1)
+    return keys[at] == wanted, at
 
 
 def _repeat_for_units(table: pd.DataFrame, owner_of_unit: np.ndarray, by: str = "query") -> pd.DataFrame:
