@@ -126,28 +126,39 @@ def test_code_profile_features_match_a_count_over_the_dictionary():
     # is computed another way: plain Python over the dictionary's entries and scikit-learn's own
     # TfidfVectorizer, against the index's sparse products.
     from sklearn.feature_extraction.text import TfidfVectorizer
-    from titlematch.coding.linear import head_word
+    from titlematch.coding.linear import head_phrase, head_word
 
     past = pd.concat([_teachers(), SOC.assign(context="")], ignore_index=True)
     coder = TitleCoder().fit(past, past["code"], classification=SOC)
-    queries = ["school teacher", "truck driver", "marketing analyst", "chief of police", "zzyzx"]
+    queries = ["school teacher", "truck driver", "marketing analyst", "chief of police", "zzyzx",
+               "deputy chief executives"]
     feats = coder.features(pd.DataFrame({"title": queries}))
     entries = coder.dictionary_.entries.groupby(["key", "code"])["weight"].sum()
     keys = sorted(coder.dictionary_.entries["key"].unique())
     tfidf = TfidfVectorizer(analyzer="word", token_pattern=r"\S+").fit(keys)
     corrected = coder._units(pd.DataFrame({"title": queries}))[0]["corrected"].tolist()
+    def share(label, q, code):  # the code's share among the records of keys labelled like q; -1 if none
+        same = {(k, c): w for (k, c), w in entries.items() if label(k) and label(k) == label(q)}
+        if not same:
+            return -1.0
+        return sum(w for (k, c), w in same.items() if c == code) / (sum(same.values()) + 1.0)
+
     for row in feats.itertuples():
         q = corrected[row.record]
-        same_head = {(k, c): w for (k, c), w in entries.items() if head_word(k) == head_word(q)}
-        if same_head:
-            expected = sum(w for (k, c), w in same_head.items() if c == row.code) / (sum(same_head.values()) + 1.0)
-        else:
-            expected = -1.0
-        assert row.head_share == pytest.approx(expected, rel=1e-9), (q, row.code)
+        assert row.head_share == pytest.approx(share(head_word, q, row.code), rel=1e-9), (q, row.code)
+        assert row.phrase_share == pytest.approx(share(head_phrase, q, row.code), rel=1e-9), (q, row.code)
         vec = tfidf.transform([q]).toarray().ravel()
         words = {w for (k, c) in entries.index if c == row.code for w in k.split()}
         covered = sum(vec[i] ** 2 for w, i in tfidf.vocabulary_.items() if w in words)
         assert row.word_cover == pytest.approx(covered, abs=1e-6), (q, row.code)
+        vote = 0.0  # each query word's squared weight times the code's share among titles with the word
+        for w, i in tfidf.vocabulary_.items():
+            if vec[i] > 0:
+                with_word = {(k, c): x for (k, c), x in entries.items() if w in k.split()}
+                vote += vec[i] ** 2 * sum(x for (k, c), x in with_word.items() if c == row.code) / sum(with_word.values())
+        assert row.word_vote == pytest.approx(vote, abs=1e-6), (q, row.code)
     assert set(feats.loc[feats["record"] == 4, "head_share"]) <= {-1.0}  # a head word never seen
     driver = feats[(feats["record"] == 1) & (feats["code"] == "53-3032")]
     assert driver["head_share"].iloc[0] > 0.3 and driver["word_cover"].iloc[0] == pytest.approx(1.0, abs=1e-6)
+    deputy = feats[(feats["record"] == 5) & (feats["code"] == "11-1011")]  # "chief executives" is its head phrase
+    assert deputy["phrase_share"].iloc[0] > 0.3

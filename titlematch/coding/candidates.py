@@ -17,7 +17,7 @@ from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 
 from ..io.artefact import ArtefactError, csr_arrays, csr_from
 from .dictionary import TitleDictionary
-from .linear import LinearTitleModel, head_word
+from .linear import LinearTitleModel, head_phrase, head_word
 from ..normalize.ngrams import char_wb_counts, tfidf_weights
 from ..normalize.spelling import SpellingCorrector
 
@@ -138,21 +138,31 @@ class TitleIndex:
         """What each code's dictionary titles say as a whole, derived from the keys (nothing saved):
         the codes of the titles sharing each head word (``head_code_keys_``), since the head noun carries
         the occupation, and the words any of the code's titles use (``code_word_keys_``)."""
-        heads = pd.Index([head_word(k) for k in self.keys_])
-        self.head_of_ = {h: i for i, h in enumerate(heads.unique())}
-        key_head = np.fromiter((self.head_of_[h] for h in heads), dtype=np.int64, count=len(heads))
-        to_head = sp.csr_matrix((np.ones(len(key_head)), (key_head, np.arange(len(key_head)))),
-                                shape=(len(self.head_of_), len(self.keys_)))
-        head_codes = (to_head @ self.key_codes_).tocoo()
-        self.head_total_ = np.bincount(head_codes.row, weights=head_codes.data, minlength=len(self.head_of_))
-        # as sorted (head x codes + code) numbers with their weights: looked up by searchsorted
-        order = np.argsort(head_codes.row.astype(np.int64) * len(self.codes_) + head_codes.col, kind="stable")
-        self.head_code_keys_ = head_codes.row[order].astype(np.int64) * len(self.codes_) + head_codes.col[order]
-        self.head_code_weights_ = head_codes.data[order]
-        uses = self.key_codes_.T.tocsr().astype(bool).astype(np.float32)
-        code_words = (uses @ self.word_matrix_.T.astype(bool).astype(np.float32)).tocoo()
-        # as sorted (code x words + word) numbers: a candidate's words are looked up, never its code's row
-        self.code_word_keys_ = np.unique(code_words.row.astype(np.int64) * code_words.shape[1] + code_words.col)
+        self.head_of_, self.head_code_keys_, self.head_code_weights_, self.head_total_ = self._share_table(
+            [head_word(k) for k in self.keys_])
+        self.phrase_of_, self.phrase_code_keys_, self.phrase_code_weights_, self.phrase_total_ = self._share_table(
+            [head_phrase(k) for k in self.keys_])
+        word_codes = (self.word_matrix_.astype(bool).astype(np.float64) @ self.key_codes_).tocoo()
+        word_total = np.bincount(word_codes.row, weights=word_codes.data, minlength=word_codes.shape[0])
+        numbers = word_codes.row.astype(np.int64) * len(self.codes_) + word_codes.col
+        order = np.argsort(numbers, kind="stable")
+        self.word_code_keys_ = numbers[order]
+        self.word_code_shares_ = word_codes.data[order] / word_total[word_codes.row[order]]
+
+    def _share_table(self, labels: list[str]):
+        """Codes' weights per label of the keys (label -> position, sorted label x codes + code numbers,
+        their weights, each label's total); keys labelled "" are left out."""
+        names = pd.Index(labels)
+        of = {h: i for i, h in enumerate(h for h in names.unique() if h)}
+        key_label = np.fromiter((of.get(h, -1) for h in names), dtype=np.int64, count=len(names))
+        keep = np.flatnonzero(key_label >= 0)
+        to_label = sp.csr_matrix((np.ones(len(keep)), (key_label[keep], keep)), shape=(len(of), len(self.keys_)))
+        codes = (to_label @ self.key_codes_).tocoo()
+        total = np.bincount(codes.row, weights=codes.data, minlength=len(of))
+        # as sorted (label x codes + code) numbers with their weights: looked up by searchsorted
+        numbers = codes.row.astype(np.int64) * len(self.codes_) + codes.col
+        order = np.argsort(numbers, kind="stable")
+        return of, numbers[order], codes.data[order], total
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
         key_pos = pd.Index(self.keys_).get_indexer(entries["key"])

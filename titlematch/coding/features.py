@@ -14,13 +14,13 @@ from rapidfuzz import distance, fuzz, process
 
 from .candidates import TitleIndex
 from .dictionary import context_tokens
-from .linear import head_word
+from .linear import head_phrase, head_word
 
 FEATURES = [
     "exact", "exact_corrected", "via_role", "sim_char", "sim_word", "ratio", "token_set_ratio", "partial_ratio",
     "jaro_winkler", "share", "share_evidence", "log_exact_weight", "support", "log_key_weight", "log_code_weight", "code_prior", "ctx_share",
     "ctx_global", "has_context", "ctx_known", "clf_prob", "clf_rank", "clf_group_prob", "group_support",
-    "official", "n_changes", "head_share", "word_cover",
+    "official", "n_changes", "head_share", "phrase_share", "word_cover", "word_vote",
     "spelling_changed", "n_roles", "n_tokens", "n_codes", "score", "score_gap", "rank",
 ]
 MAX_CANDIDATES = 10
@@ -279,14 +279,21 @@ def _profile_features(cands: pd.DataFrame, index: TitleIndex, qtext: np.ndarray,
     found, at = _lookup(index.head_code_keys_, head * len(index.codes_) + c)
     weight = np.where(found & known, index.head_code_weights_[at] if len(at) else 0.0, 0.0)
     cands["head_share"] = np.where(known, weight / (index.head_total_[np.maximum(head, 0)] + 1.0), -1.0)
+    phrase = np.array([index.phrase_of_.get(head_phrase(t), -1) for t in qtext], dtype=np.int64)[q]
+    known = phrase >= 0
+    found, at = _lookup(index.phrase_code_keys_, phrase * len(index.codes_) + c)
+    weight = np.where(found & known, index.phrase_code_weights_[at] if len(at) else 0.0, 0.0)
+    cands["phrase_share"] = np.where(known, weight / (index.phrase_total_[np.maximum(phrase, 0)] + 1.0), -1.0)
     # each candidate's query words, looked up among its code's words (a code's own row of words may
     # hold thousands: taking it per candidate would cost memory in proportion)
     squared = qw.multiply(qw).tocsr()
     counts = np.diff(squared.indptr)[q]
     owner = np.repeat(np.arange(len(cands)), counts)
     nz = np.repeat(squared.indptr[q], counts) + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
-    hit, _ = _lookup(index.code_word_keys_, c[owner] * squared.shape[1] + squared.indices[nz])
+    hit, at = _lookup(index.word_code_keys_, squared.indices[nz].astype(np.int64) * len(index.codes_) + c[owner])
     cands["word_cover"] = np.bincount(owner, weights=np.where(hit, squared.data[nz], 0.0), minlength=len(cands))
+    share = np.where(hit, index.word_code_shares_[at] if len(at) else 0.0, 0.0)
+    cands["word_vote"] = np.bincount(owner, weights=squared.data[nz] * share, minlength=len(cands))
 
 
 def _lookup(keys: np.ndarray, wanted: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -51,6 +51,17 @@ def head_word(key: str) -> str:
     return words[-1] if words else ""
 
 
+def head_phrase(key: str) -> str:
+    """The head word with the word before it ("machine tender" of "forging machine tender"), or ""."""
+    words = key.split()
+    at = len(words) - 1
+    for i, w in enumerate(words):
+        if w in _PREPOSITIONS and i > 0:
+            at = i - 1
+            break
+    return f"{words[at - 1]} {words[at]}" if at >= 1 else ""
+
+
 def _word_text(key: str, context_words: str) -> str:
     head = head_word(key)
     return f"{key} h:{head} {context_words}" if head else f"{key} {context_words}"
