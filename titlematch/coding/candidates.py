@@ -10,6 +10,8 @@ sources are aggregated per code, since many dictionary entries share one.
 """
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
@@ -92,6 +94,30 @@ def top_k_sparse(scores: sp.csr_matrix, k: int, min_score: float = 0.0) -> tuple
     return np.concatenate(rows), np.concatenate(cols).astype(np.int64), np.concatenate(vals)
 
 
+class CodeTable(NamedTuple):
+    """Codes' record weights per label (a head word, a phrase, a word): ``positions`` maps a label to
+    its row (None: rows given by the caller), ``numbers`` are sorted ``row x n_codes + code``,
+    ``weights`` theirs, ``total`` each row's records."""
+    positions: dict | None
+    numbers: np.ndarray
+    weights: np.ndarray
+    total: np.ndarray
+    n_codes: int
+
+    def rows(self, labels) -> np.ndarray:
+        """Each label's row, -1 for a label never seen."""
+        return np.fromiter((self.positions.get(label, -1) for label in labels), dtype=np.int64)
+
+    def weights_of(self, rows: np.ndarray, codes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Whether each (row, code) holds records, and their weight (0 where not; rows of -1 hold none)."""
+        wanted = rows * self.n_codes + codes
+        if not len(self.numbers):
+            return np.zeros(len(wanted), dtype=bool), np.zeros(len(wanted))
+        at = np.minimum(np.searchsorted(self.numbers, wanted), len(self.numbers) - 1)
+        found = (self.numbers[at] == wanted) & (rows >= 0)
+        return found, np.where(found, self.weights[at], 0.0)
+
+
 class TitleIndex:
     """Everything needed to find candidate codes for a normalized title, built from a dictionary.
 
@@ -136,33 +162,30 @@ class TitleIndex:
 
     def _fit_code_profiles(self) -> None:
         """What each code's dictionary titles say as a whole, derived from the keys (nothing saved):
-        the codes of the titles sharing each head word (``head_code_keys_``), since the head noun carries
-        the occupation, and the words any of the code's titles use (``code_word_keys_``)."""
-        self.head_of_, self.head_code_keys_, self.head_code_weights_, self.head_total_ = self._share_table(
-            [head_word(k) for k in self.keys_])
-        self.phrase_of_, self.phrase_code_keys_, self.phrase_code_weights_, self.phrase_total_ = self._share_table(
-            [head_phrase(k) for k in self.keys_])
-        word_codes = (self.word_matrix_.astype(bool).astype(np.float64) @ self.key_codes_).tocoo()
-        word_total = np.bincount(word_codes.row, weights=word_codes.data, minlength=word_codes.shape[0])
-        numbers = word_codes.row.astype(np.int64) * len(self.codes_) + word_codes.col
-        order = np.argsort(numbers, kind="stable")
-        self.word_code_keys_ = numbers[order]
-        self.word_code_shares_ = word_codes.data[order] / word_total[word_codes.row[order]]
+        the codes' records among the titles sharing each head word (``head_codes_``), since the head
+        noun carries the occupation, each head phrase (``phrase_codes_``) and each word of the word
+        search's vocabulary (``word_codes_``, rows in the vocabulary's order)."""
+        self.head_codes_ = self._code_table([head_word(k) for k in self.keys_])
+        self.phrase_codes_ = self._code_table([head_phrase(k) for k in self.keys_])
+        self.word_codes_ = self._code_table(self.word_matrix_.astype(bool))
 
-    def _share_table(self, labels: list[str]):
-        """Codes' weights per label of the keys (label -> position, sorted label x codes + code numbers,
-        their weights, each label's total); keys labelled "" are left out."""
-        names = pd.Index(labels)
-        of = {h: i for i, h in enumerate(h for h in names.unique() if h)}
-        key_label = np.fromiter((of.get(h, -1) for h in names), dtype=np.int64, count=len(names))
-        keep = np.flatnonzero(key_label >= 0)
-        to_label = sp.csr_matrix((np.ones(len(keep)), (key_label[keep], keep)), shape=(len(of), len(self.keys_)))
-        codes = (to_label @ self.key_codes_).tocoo()
-        total = np.bincount(codes.row, weights=codes.data, minlength=len(of))
+    def _code_table(self, labels) -> "CodeTable":
+        """The codes' record weights per label of the keys: ``labels`` is one string per key (keys
+        labelled "" are left out) or a 0/1 matrix, labels x keys."""
+        positions = None
+        if isinstance(labels, list):
+            names = pd.Index(labels)
+            positions = {h: i for i, h in enumerate(h for h in names.unique() if h)}
+            key_label = np.fromiter((positions.get(h, -1) for h in names), dtype=np.int64, count=len(names))
+            keep = np.flatnonzero(key_label >= 0)
+            labels = sp.csr_matrix((np.ones(len(keep)), (key_label[keep], keep)),
+                                   shape=(len(positions), len(self.keys_)))
+        codes = (labels.astype(np.float64) @ self.key_codes_).tocoo()
         # as sorted (label x codes + code) numbers with their weights: looked up by searchsorted
         numbers = codes.row.astype(np.int64) * len(self.codes_) + codes.col
         order = np.argsort(numbers, kind="stable")
-        return of, numbers[order], codes.data[order], total
+        return CodeTable(positions, numbers[order], codes.data[order],
+                         np.bincount(codes.row, weights=codes.data, minlength=labels.shape[0]), len(self.codes_))
 
     def _fit_key_codes(self, entries: pd.DataFrame) -> None:
         key_pos = pd.Index(self.keys_).get_indexer(entries["key"])

@@ -269,39 +269,28 @@ def candidate_features(index: TitleIndex, ctx: ContextTables, official: set, uni
 
 def _profile_features(cands: pd.DataFrame, index: TitleIndex, qtext: np.ndarray, qw: sp.csr_matrix) -> None:
     """Evidence from all of a code's dictionary titles, not only the best one behind it: the code's
-    share among titles with the query's head word (``head_share``, one record of doubt added; -1 for
-    a head word the dictionary never had) and the part of the query's word TF-IDF mass that the
-    code's titles use (``word_cover``)."""
+    share among titles with the query's head word (``head_share``) and head phrase (``phrase_share``),
+    one record of doubt added, -1 for one the dictionary never had; the part of the query's word
+    TF-IDF mass that the code's titles use (``word_cover``); and the query words' code shares weighted
+    by their squared TF-IDF weights (``word_vote``)."""
     q = cands["query"].to_numpy(np.int64)
     c = cands["code"].to_numpy(np.int64)
-    head = np.array([index.head_of_.get(head_word(t), -1) for t in qtext], dtype=np.int64)[q]
-    known = head >= 0
-    found, at = _lookup(index.head_code_keys_, head * len(index.codes_) + c)
-    weight = np.where(found & known, index.head_code_weights_[at] if len(at) else 0.0, 0.0)
-    cands["head_share"] = np.where(known, weight / (index.head_total_[np.maximum(head, 0)] + 1.0), -1.0)
-    phrase = np.array([index.phrase_of_.get(head_phrase(t), -1) for t in qtext], dtype=np.int64)[q]
-    known = phrase >= 0
-    found, at = _lookup(index.phrase_code_keys_, phrase * len(index.codes_) + c)
-    weight = np.where(found & known, index.phrase_code_weights_[at] if len(at) else 0.0, 0.0)
-    cands["phrase_share"] = np.where(known, weight / (index.phrase_total_[np.maximum(phrase, 0)] + 1.0), -1.0)
+    for name, table, label in (("head_share", index.head_codes_, head_word),
+                               ("phrase_share", index.phrase_codes_, head_phrase)):
+        rows = table.rows(label(t) for t in qtext)[q]
+        _, weight = table.weights_of(rows, c)
+        cands[name] = np.where(rows >= 0, weight / (table.total[np.maximum(rows, 0)] + 1.0), -1.0)
     # each candidate's query words, looked up among its code's words (a code's own row of words may
     # hold thousands: taking it per candidate would cost memory in proportion)
     squared = qw.multiply(qw).tocsr()
     counts = np.diff(squared.indptr)[q]
     owner = np.repeat(np.arange(len(cands)), counts)
     nz = np.repeat(squared.indptr[q], counts) + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
-    hit, at = _lookup(index.word_code_keys_, squared.indices[nz].astype(np.int64) * len(index.codes_) + c[owner])
+    words = squared.indices[nz].astype(np.int64)
+    hit, weight = index.word_codes_.weights_of(words, c[owner])
     cands["word_cover"] = np.bincount(owner, weights=np.where(hit, squared.data[nz], 0.0), minlength=len(cands))
-    share = np.where(hit, index.word_code_shares_[at] if len(at) else 0.0, 0.0)
+    share = np.where(hit, weight / np.maximum(index.word_codes_.total[words], 1e-300), 0.0)
     cands["word_vote"] = np.bincount(owner, weights=squared.data[nz] * share, minlength=len(cands))
-
-
-def _lookup(keys: np.ndarray, wanted: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Whether each ``wanted`` number is in the sorted ``keys``, and where (clipped when not)."""
-    if not len(keys):
-        return np.zeros(len(wanted), dtype=bool), np.zeros(len(wanted), dtype=np.int64)
-    at = np.minimum(np.searchsorted(keys, wanted), len(keys) - 1)
-    return keys[at] == wanted, at
 
 
 def _repeat_for_units(table: pd.DataFrame, owner_of_unit: np.ndarray, by: str = "query") -> pd.DataFrame:

@@ -42,23 +42,25 @@ SGD_PARTS = 2  # fixed slices of each SGD step, run on up to this many threads
 _PREPOSITIONS = frozenset("of for in at to with on".split())
 
 
+def _head_at(words: list[str]) -> int:
+    """Position of the head noun: the word before the first preposition, else the last (-1: no words)."""
+    for i, w in enumerate(words):
+        if w in _PREPOSITIONS and i > 0:
+            return i - 1
+    return len(words) - 1
+
+
 def head_word(key: str) -> str:
     """The head noun of a normalized title: before the first preposition, else the last word."""
     words = key.split()
-    for i, w in enumerate(words):
-        if w in _PREPOSITIONS and i > 0:
-            return words[i - 1]
-    return words[-1] if words else ""
+    at = _head_at(words)
+    return words[at] if at >= 0 else ""
 
 
 def head_phrase(key: str) -> str:
     """The head word with the word before it ("machine tender" of "forging machine tender"), or ""."""
     words = key.split()
-    at = len(words) - 1
-    for i, w in enumerate(words):
-        if w in _PREPOSITIONS and i > 0:
-            at = i - 1
-            break
+    at = _head_at(words)
     return f"{words[at - 1]} {words[at]}" if at >= 1 else ""
 
 
