@@ -18,6 +18,7 @@ of the command plus the unique set of each child: forked workers, Dask workers).
 from __future__ import annotations
 
 import argparse
+import hashlib
 import os
 import subprocess
 import sys
@@ -75,6 +76,16 @@ def score(linked: pd.DataFrame, truth: pd.DataFrame) -> dict:
     return out
 
 
+def report(head: str, output: Path, truth: pd.DataFrame) -> None:
+    """Print a link's line: ``head``, its scores and the output file's SHA-256 (runs compare by it)."""
+    result = score(pd.read_parquet(output), truth)
+    a, acc = result["all"], result["accepted"]
+    digest = hashlib.sha256(output.read_bytes()).hexdigest()
+    print(f"{head}; F1 {a['f1']:.4f} (precision {a['precision']:.4f}, recall {a['recall']:.4f}); accepted "
+          f"precision {acc['precision']:.4f} on {acc['links']:,}, referred {result['referred']:,}; output SHA-256 "
+          f"{digest[:16]}; load average {os.getloadavg()[0]:.1f}", flush=True)
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--dir", required=True, help="working directory (files are reused when present)")
@@ -88,6 +99,8 @@ def main(argv=None) -> int:
     parser.add_argument("--cache-rows", type=int, default=None, help="'link --cache-rows' (default: the command's)")
     parser.add_argument("--dask", action="store_true", help="also link with the Dask engine, 2 workers")
     parser.add_argument("--skip-register", action="store_true", help="reuse the index in --dir")
+    parser.add_argument("--skip-local", action="store_true",
+                        help="no local-engine link (with --dask: compared with local.parquet in --dir if there)")
     parser.add_argument("--records", type=int, default=None,
                         help="link only the first N records of the scenario's (written as new_N.parquet)")
     args = parser.parse_args(argv)
@@ -120,23 +133,21 @@ def main(argv=None) -> int:
             "--chunk-rows", str(args.chunk_rows), "--restart", *common]
     if args.cache_rows:
         link += ["--cache-rows", str(args.cache_rows)]
-    wall, peak = command([*link, "--out", str(work / "local.parquet")], env)
-    result = score(pd.read_parquet(work / "local.parquet"), truth)
-    a, acc = result["all"], result["accepted"]
-    print(f"link ({args.blocking} blocking, local engine): {wall:.0f} s, peak {peak:,.0f} MB; "
-          f"{len(truth) / wall:,.0f} records/s; F1 {a['f1']:.4f} (precision {a['precision']:.4f}, recall "
-          f"{a['recall']:.4f}); accepted precision {acc['precision']:.4f} on {acc['links']:,}, referred "
-          f"{result['referred']:,}; load average {os.getloadavg()[0]:.1f}", flush=True)
+    if not args.skip_local:
+        wall, peak = command([*link, "--out", str(work / "local.parquet")], env)
+        report(f"link ({args.blocking} blocking, local engine): {wall:.0f} s, peak {peak:,.0f} MB; "
+               f"{len(truth) / wall:,.0f} records/s", work / "local.parquet", truth)
     if args.dask:
         import distributed
         with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                       dashboard_address=None) as cluster:
             wall, peak = command([*link, "--out", str(work / "dask.parquet"), "--engine", "dask",
                                   "--scheduler", cluster.scheduler_address], env)
-        same = pd.read_parquet(work / "dask.parquet").equals(pd.read_parquet(work / "local.parquet"))
-        print(f"link with the Dask engine (2 workers): {wall:.0f} s, peak {peak:,.0f} MB (the command and the "
-              f"cluster's workers); output identical to the local engine's: {same}; load average "
-              f"{os.getloadavg()[0]:.1f}", flush=True)
+        local = work / "local.parquet"
+        same = pd.read_parquet(work / "dask.parquet").equals(pd.read_parquet(local)) if local.exists() else "no local run"
+        report(f"link with the Dask engine (2 workers): {wall:.0f} s, peak {peak:,.0f} MB (the command and the "
+               f"cluster's workers); {len(truth) / wall:,.0f} records/s; output identical to the local engine's: "
+               f"{same}", work / "dask.parquet", truth)
     return 0
 
 
