@@ -42,14 +42,20 @@ def test_link_output_does_not_depend_on_chunking(workdir):
     assert (accepted["register_id"].to_numpy() == truth.loc[accepted["record_id"]].to_numpy()).mean() >= 0.98
 
 
-def test_link_dask_engine_identical_to_local(workdir):
+def test_link_dask_engine_identical_to_local(workdir, monkeypatch):
+    from titlematch.linking.register import RegisterIndex
     path, _ = workdir
     distributed = pytest.importorskip("distributed", reason="the [dask] extra is not installed (pip install titlematch[dask]); CI installs it through the test extra")
+    released, release = [], RegisterIndex.release
+    monkeypatch.setattr(RegisterIndex, "release", lambda index: released.append(release(index)) or released[-1])
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster:
         assert _link(path, path / "dask.csv", "--chunk-rows", "300", "--engine", "dask",
                      "--scheduler", cluster.scheduler_address) == 0
+    # the command let go of the partitions its EM pass read (3,000 register rows): the workers read their own
+    assert released == [3_000]
     assert _link(path, path / "local.csv", "--chunk-rows", "300") == 0
+    assert released == [3_000]  # the local engine links with the command's partitions: kept
     assert (path / "dask.csv").read_bytes() == (path / "local.csv").read_bytes()
 
 

@@ -88,6 +88,18 @@ def test_partitioned_index_links_identically(tmp_path, data, one_core):
     pd.testing.assert_frame_equal(linker.link(data["new"]), expected)
 
 
+def test_released_partitions_are_read_again_and_link_identically(tmp_path, data, one_core):
+    index, expected = one_core
+    index.save(tmp_path / "index", partition_rows=1_000)
+    loaded = RegisterIndex.load(tmp_path / "index")  # the default cache holds all five
+    linker = EstablishmentLinker(workers=1).fit(loaded, records=data["new"])
+    held = loaded._store._cache
+    assert sum(len(p) for p in held.values()) == loaded.release() == len(index) and not held
+    pd.testing.assert_frame_equal(linker.link(data["new"]), expected)
+    assert len(held) == 5
+    assert index.release() == 0 and index.n_partitions == 1  # an index built in memory keeps its partition
+
+
 def test_regional_rules_read_only_the_batch_partitions(tmp_path, data, one_core):
     from titlematch.linking.blocking import KeyRule, NeighbourRule, needed_partitions
     index, _ = one_core

@@ -236,6 +236,12 @@ def run(args) -> int:
     else:
         linker.fit(index, training, records=sample, records_source=str(args.file))
         step = LinkStep(linker, str(args.file))
+    if args.engine == "dask":  # the workers read the partitions they need: the command holds none
+        from ..runtime.memory import return_freed_memory
+        released = index.release()
+        if released:
+            return_freed_memory()
+            log.info("let go of %d register rows read for the EM pass before the chunks go to Dask", released)
     # the register and training by content: an index rebuilt in place never resumes stale chunks
     options = run_options("link", {"register": args.register, "training": args.training}, fields=args.fields,
                           register_fields=args.register_fields, id_col=args.id_col, threshold=args.threshold,

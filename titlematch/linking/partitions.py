@@ -190,6 +190,12 @@ class PartitionStore:
                 rows = size
         return out
 
+    def release(self) -> int:
+        """Let go of the partitions in memory (read again when next needed); the rows they held."""
+        rows = sum(len(p) for p in self._cache.values())
+        self._cache.clear()
+        return rows
+
     def __getstate__(self) -> dict:
         # Sent to a Dask worker: the worker reads the partitions itself, from the same directory.
         state = dict(self.__dict__)

@@ -458,6 +458,12 @@ class RegisterIndex:
         """Read these partitions now if they fit the cache together; True if they are all in memory."""
         return self._store.preload(partitions) if self._store is not None else True
 
+    def release(self) -> int:
+        """Let go of the partitions read from disk (a saved index reads them again when next needed;
+        an index built in memory keeps its one partition); the register rows let go. The link
+        command calls it before its chunks go to Dask workers, which read partitions themselves."""
+        return self._store.release() if self._store is not None else 0
+
     def partition_groups(self, partitions) -> list[list[int]]:
         """``partitions`` in groups that fit the partition cache together (one group for an index
         in memory)."""
