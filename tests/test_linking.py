@@ -9,6 +9,7 @@ reference computation, the Census Bureau's definition of an establishment (from 
 from __future__ import annotations
 
 import json
+import pickle
 
 import numpy as np
 import pandas as pd
@@ -286,12 +287,25 @@ def test_register_index_round_trip_and_tamper_check(tmp_path, scenario):
     index = RegisterIndex().fit(scenario["register"])
     index.save(tmp_path / "index")
     files = sorted(p.name for p in (tmp_path / "index").rglob("*") if p.is_file())
-    assert all(f.endswith((".parquet", ".npy", ".json")) for f in files)  # data only, no pickle
+    assert all(f.endswith((".parquet", ".npy", ".json", ".arrow")) for f in files)  # data only, no pickle
+    assert "register.arrow" in files  # ids and display columns: an Arrow IPC file, memory-mapped when loaded
     loaded = RegisterIndex.load(tmp_path / "index")
     records = scenario["new"].head(200)
     a = EstablishmentLinker().fit(index, records=records).link(records)
     b = EstablishmentLinker().fit(loaded, records=records).link(records)
     pd.testing.assert_frame_equal(a, b)
+    # Sent to another process (a Dask worker), a loaded index leaves its ids and display columns
+    # behind and maps the file again there: the same links.
+    shipped = pickle.dumps(loaded)
+    assert loaded.ids_.iloc[-1].encode() not in shipped
+    assert loaded.display_["register_address"].iloc[-1].encode() not in shipped
+    pd.testing.assert_frame_equal(EstablishmentLinker().fit(pickle.loads(shipped), records=records).link(records), a)
+    (tmp_path / "index" / "register.arrow").write_bytes((tmp_path / "index" / "register.arrow").read_bytes() + b"\0")
+    with pytest.raises(ArtefactError, match="register.arrow: checksum"):
+        pickle.loads(shipped)
+    with pytest.raises(ArtefactError, match="register.arrow: checksum"):
+        RegisterIndex.load(tmp_path / "index")
+    index.save(tmp_path / "index")
     with open(tmp_path / "index" / "word_idf.npy", "r+b") as handle:
         handle.seek(-4, 2)
         handle.write(b"\x00\x00\x80\x7f")

@@ -246,9 +246,26 @@ def test_register_killed_while_writing_leaves_the_old_index(tmp_path, data):
         index = RegisterIndex.load(tmp_path / "index")
         assert index.display_["register_name"].tolist() == register["name"].tolist()
         assert sum(len(index.partition(k)) for k in range(index.n_partitions)) == len(register)  # all whole
-    # Staging left by the killed runs is hidden beside the index and never read; a finished run replaces it all.
-    assert main(["register", str(tmp_path / "new.csv"), "--out", str(tmp_path / "index"),
-                 "--partition-rows", "200", "--quiet"]) == 0
+    # Staging left by the killed runs is hidden beside the index and never read; the next run removes
+    # it (its processes are gone), leaves a running process's staging alone, and replaces the index.
+    killed = [p.name for p in tmp_path.glob(".index.*")]
+    assert len(killed) == 1, killed  # each killed run, starting, removed the one killed before it
+    alive = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        from titlematch.io.artefact import _owner_tag
+        writing = subprocess.run([sys.executable, "-c", "import os, sys; sys.path.insert(0, sys.argv[1]); "
+                                  "from titlematch.io.artefact import _owner_tag, _process_start; "
+                                  "host = _owner_tag().split('-')[0]; pid = int(sys.argv[2]); "
+                                  "print(f'{host}-{pid}-{_process_start(pid)}')", ROOT, str(alive.pid)],
+                                 capture_output=True, text=True, check=True).stdout.strip()
+        (tmp_path / f".index.{writing}.abc123").mkdir()  # as a run still writing names its staging
+        assert main(["register", str(tmp_path / "new.csv"), "--out", str(tmp_path / "index"),
+                     "--partition-rows", "200", "--quiet"]) == 0
+        assert [p.name for p in tmp_path.glob(".index.*")] == [f".index.{writing}.abc123"]
+        assert _owner_tag().split("-")[0] == writing.split("-")[0]
+    finally:
+        alive.kill()
+        alive.wait()
     assert RegisterIndex.load(tmp_path / "index").display_["register_name"].str.endswith(" X").all()
 
 

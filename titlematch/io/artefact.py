@@ -1,6 +1,7 @@
 """Saved artefacts (dictionaries, confidence models, register indexes) in a safe, versioned layout.
 
-An artefact is a directory of Parquet tables and ``.npy`` arrays plus ``manifest.json``
+An artefact is a directory of Parquet tables and ``.npy`` arrays (and, for a table read row by row
+from many processes, an uncompressed Arrow IPC file, memory-mapped when loaded) plus ``manifest.json``
 with the kind, format version, library version, build metadata and a SHA-256 for every
 file, and a SHA-256 of the manifest's own content, so that settings kept there (a model's
 threshold, a dictionary's options) cannot be edited unnoticed either. Loading verifies all of
@@ -11,6 +12,7 @@ it, checks each array's shape and table's row count against the manifest, and re
 from __future__ import annotations
 
 import ctypes
+import glob
 import hashlib
 import json
 import os
@@ -75,14 +77,20 @@ def save_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.
 
 
 def write_artefact(directory: str | os.PathLike, kind: str, tables: dict[str, pd.DataFrame], *,
-                   arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None) -> dict:
+                   arrays: dict[str, np.ndarray] | None = None, meta: dict | None = None,
+                   mapped: tuple[str, ...] = ()) -> dict:
     """Write an artefact's files into an existing ``directory`` (a staging directory: no atomicity here);
-    the manifest is written last, so a directory without one was never finished."""
+    the manifest is written last, so a directory without one was never finished. Tables named in
+    ``mapped`` are written as uncompressed Arrow IPC files, which ``load_artefact`` memory-maps."""
     directory = Path(directory)
     files = {}
     for name, table in tables.items():
-        target = directory / f"{name}.parquet"
-        table.reset_index(drop=True).to_parquet(target, index=False)
+        if name in mapped:
+            target = directory / f"{name}.arrow"
+            _write_arrow(table.reset_index(drop=True), target)
+        else:
+            target = directory / f"{name}.parquet"
+            table.reset_index(drop=True).to_parquet(target, index=False)
         files[target.name] = {"sha256": file_sha256(target), "rows": int(len(table))}
     for name, array in (arrays or {}).items():
         array = np.asarray(array)
@@ -107,11 +115,13 @@ def staged_directory(directory: str | os.PathLike):
     finished new directory: where the kernel can swap two paths in one step (Linux
     ``renameat2(RENAME_EXCHANGE)``) it does; elsewhere the old directory is moved aside first, and
     a kill in between leaves nothing at ``directory`` (the old one stays in ``.NAME.old.*``).
-    Staging directories of killed runs are hidden (``.NAME.*``) and never read.
+    Staging directories are hidden (``.NAME.*``), never read, and named after the process that
+    writes them: those of killed runs (their process gone) are removed when the next run starts.
     """
     directory = Path(directory)
     directory.parent.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=f".{directory.name}.", dir=directory.parent))
+    remove_abandoned_staging(directory)
+    staging = Path(tempfile.mkdtemp(prefix=f".{directory.name}.{_owner_tag()}.", dir=directory.parent))
     try:
         yield staging
         if directory.exists() and _exchange(staging, directory):
@@ -126,6 +136,43 @@ def staged_directory(directory: str | os.PathLike):
     finally:
         if staging.exists():
             shutil.rmtree(staging, ignore_errors=True)
+
+
+def _process_start(pid: int) -> str:
+    """When process ``pid`` started, in clock ticks since boot (Linux), "" where unknown or gone."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return ""
+    return stat.rsplit(")", 1)[-1].split()[19]  # field 22, counted after the command name
+
+
+def _owner_tag() -> str:
+    """This process, as written into its staging directories' names: host, pid and start time (a pid
+    reused by a later process has another start time)."""
+    host = hashlib.sha256(os.uname().nodename.encode()).hexdigest()[:8] if hasattr(os, "uname") else "0"
+    return f"w{host}-{os.getpid()}-{_process_start(os.getpid()) or 0}"
+
+
+def remove_abandoned_staging(directory: str | os.PathLike) -> list[Path]:
+    """Remove staging directories of ``directory`` left by killed runs on this machine: named after a
+    process that no longer runs. Another machine's (a shared disk) and a live process's are left
+    alone; so is everything where the process table cannot be read. Returns what was removed."""
+    directory = Path(directory)
+    if not Path("/proc/self/stat").exists():
+        return []
+    host = _owner_tag().split("-")[0]
+    removed = []
+    for path in directory.parent.glob(f".{glob.escape(directory.name)}.w*-*-*.*"):
+        tag = path.name[len(directory.name) + 2:].split(".")[0]
+        parts = tag.split("-")
+        if len(parts) != 3 or parts[0] != host or not parts[1].isdigit() or not path.is_dir():
+            continue
+        if _process_start(int(parts[1])) == parts[2]:
+            continue  # that run is still writing
+        shutil.rmtree(path, ignore_errors=True)
+        removed.append(path)
+    return removed
 
 
 def _exchange(a: Path, b: Path) -> bool:
@@ -193,6 +240,11 @@ def load_artefact(directory: str | os.PathLike, kind: str, arrow_tables=()) -> A
                 if "rows" in info and len(table) != info["rows"]:
                     raise ArtefactError(f"{path}: {len(table)} rows; the manifest says {info['rows']}")
                 tables[name[: -len(".parquet")]] = table
+            elif name.endswith(".arrow"):
+                table = read_mapped_table(path)
+                if "rows" in info and len(table) != info["rows"]:
+                    raise ArtefactError(f"{path}: {len(table)} rows; the manifest says {info['rows']}")
+                tables[name[: -len(".arrow")]] = table
             elif name.endswith(".npy"):
                 array = np.load(path, allow_pickle=False)
                 if "shape" in info and list(array.shape) != info["shape"]:
@@ -206,6 +258,39 @@ def load_artefact(directory: str | os.PathLike, kind: str, arrow_tables=()) -> A
             raise ArtefactError(f"{path}: cannot be read: {exc}") from None
     return Artefact(kind, _Parts(tables, "table", directory), _Parts(arrays, "array", directory),
                     _Parts(manifest["meta"], "setting", directory), manifest)
+
+
+def _write_arrow(frame: pd.DataFrame, target: Path) -> None:
+    import pyarrow as pa
+
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    with pa.OSFile(str(target), "wb") as sink, pa.ipc.new_file(sink, table.schema) as writer:
+        writer.write_table(table)
+
+
+def read_mapped_table(path: str | os.PathLike) -> pd.DataFrame:
+    """An Arrow IPC file as a frame of Arrow columns (``pd.ArrowDtype``) over a memory map of the file:
+    nothing is copied, pages are read when rows are taken, and processes reading the same file
+    share them (the operating system's page cache) instead of each holding a copy."""
+    import pyarrow as pa
+
+    table = pa.ipc.open_file(pa.memory_map(str(path), "r")).read_all()
+    return table.to_pandas(types_mapper=pd.ArrowDtype, self_destruct=False)
+
+
+def verified_file(directory: str | os.PathLike, kind: str, name: str) -> Path:
+    """The path of file ``name`` of an artefact, after checking the manifest and the file's checksum
+    (for a process that opens one file of an artefact again, such as a Dask worker)."""
+    directory = Path(directory)
+    manifest = _checked_manifest(directory, kind)
+    info = manifest["files"].get(name)
+    path = directory / name
+    if info is None or not path.is_file():
+        raise ArtefactError(f"{path}: listed in the manifest but missing" if info else
+                            f"{path}: not a file of this artefact")
+    if file_sha256(path) != info.get("sha256"):
+        raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
+    return path
 
 
 def csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:

@@ -28,7 +28,7 @@ import scipy.sparse as sp
 from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 from unidecode import unidecode
 
-from ..io.artefact import load_artefact, staged_directory, write_artefact
+from ..io.artefact import load_artefact, read_mapped_table, staged_directory, verified_file, write_artefact
 from ..io import ROW_COLUMN, InputError, require_columns
 from ..normalize.address import normalize_addresses, normalize_postcodes
 from ..normalize.name import normalize_names
@@ -358,7 +358,7 @@ def write_index_root(staging: Path, *, id_column: str, fields: Sequence[Field], 
     write_artefact(staging, ARTEFACT_KIND,
                    {"register": register, "char_vocabulary": _vocabulary_table(char_vectorizer),
                     "word_vocabulary": _vocabulary_table(word_vectorizer), "routing": routing},
-                   arrays=arrays, meta=meta)
+                   arrays=arrays, meta=meta, mapped=("register",))
 
 
 def _take_text(values, rows: np.ndarray) -> np.ndarray:
@@ -433,6 +433,23 @@ class RegisterIndex:
         names = raw(["name"]) if any(f.kind == "name" for f in self.fields_) else raw(["person_name"])
         return pd.DataFrame({"register_name": names.to_numpy(dtype=object),
                              "register_address": raw(["address"]).to_numpy(dtype=object)})
+
+    def _set_register(self, register: pd.DataFrame) -> None:
+        text = pd.ArrowDtype(pa.string())
+        self.ids_ = register["register_id"].astype(text).reset_index(drop=True)
+        self.display_ = register[["register_name", "register_address"]].astype(text).reset_index(drop=True)
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        if state.get("_mapped") is not None:  # sent to another process: it maps the file itself
+            state.pop("ids_", None)
+            state.pop("display_", None)
+        return state
+
+    def __setstate__(self, state: dict) -> None:
+        self.__dict__.update(state)
+        if state.get("_mapped") is not None and "ids_" not in state:
+            self._set_register(read_mapped_table(verified_file(self._mapped, ARTEFACT_KIND, "register.arrow")))
 
     def __len__(self) -> int:
         return len(self.ids_)
@@ -564,10 +581,10 @@ class RegisterIndex:
         fields = [Field(**spec) for spec in art.meta["fields"]]
         index = cls(fields=fields, id_column=art.meta.get("id_column", "register_id"))
         index.fields_ = fields
-        register = art.tables["register"]
-        text = pd.ArrowDtype(pa.string())
-        index.ids_ = register["register_id"].astype(text).reset_index(drop=True)
-        index.display_ = register[["register_name", "register_address"]].astype(text).reset_index(drop=True)
+        index._set_register(art.tables["register"])
+        # a memory-mapped register table (indexes saved since it was one) is opened again, not copied,
+        # where the index is unpickled (a Dask worker): every process shares the file's pages
+        index._mapped = Path(directory) if "register.arrow" in art.manifest["files"] else None
         index.char_vectorizer_ = _restore_vectorizer(_char_vectorizer, art.tables["char_vocabulary"],
                                                      art.arrays["char_idf"])
         index.word_vectorizer_ = _restore_vectorizer(_word_vectorizer, art.tables["word_vocabulary"],
