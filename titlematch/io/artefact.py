@@ -278,21 +278,6 @@ def read_mapped_table(path: str | os.PathLike) -> pd.DataFrame:
     return table.to_pandas(types_mapper=pd.ArrowDtype, self_destruct=False)
 
 
-def verified_file(directory: str | os.PathLike, kind: str, name: str) -> Path:
-    """The path of file ``name`` of an artefact, after checking the manifest and the file's checksum
-    (for a process that opens one file of an artefact again, such as a Dask worker)."""
-    directory = Path(directory)
-    manifest = _checked_manifest(directory, kind)
-    info = manifest["files"].get(name)
-    path = directory / name
-    if info is None or not path.is_file():
-        raise ArtefactError(f"{path}: listed in the manifest but missing" if info else
-                            f"{path}: not a file of this artefact")
-    if file_sha256(path) != info.get("sha256"):
-        raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
-    return path
-
-
 def csr_arrays(name: str, matrix: sp.csr_matrix) -> dict[str, np.ndarray]:
     """A CSR matrix as the plain arrays an artefact stores: ``{name}_data``, ``_indices``, ``_indptr``, ``_shape``."""
     return {f"{name}_data": matrix.data, f"{name}_indices": matrix.indices, f"{name}_indptr": matrix.indptr,

@@ -28,8 +28,8 @@ import scipy.sparse as sp
 from sklearn.feature_extraction.text import TfidfTransformer, TfidfVectorizer
 from unidecode import unidecode
 
-from ..io.artefact import load_artefact, read_mapped_table, staged_directory, verified_file, write_artefact
-from ..io import ROW_COLUMN, InputError, require_columns
+from ..io.artefact import ArtefactError, load_artefact, read_mapped_table, staged_directory, write_artefact
+from ..io import ROW_COLUMN, InputError, file_sha256, require_columns
 from ..normalize.address import normalize_addresses, normalize_postcodes
 from ..normalize.name import normalize_names
 from ..normalize.phonetic import phonetic_keys
@@ -449,7 +449,12 @@ class RegisterIndex:
     def __setstate__(self, state: dict) -> None:
         self.__dict__.update(state)
         if state.get("_mapped") is not None and "ids_" not in state:
-            self._set_register(read_mapped_table(verified_file(self._mapped, ARTEFACT_KIND, "register.arrow")))
+            # the file the index was opened with, checked against the checksum read then: an index
+            # rebuilt in place since is refused, not mixed with the partitions already checked
+            path, expected = Path(self._mapped[0]) / "register.arrow", self._mapped[1]
+            if not path.is_file() or file_sha256(path) != expected:
+                raise ArtefactError(f"{path}: missing or changed since the index was opened (checksum mismatch)")
+            self._set_register(read_mapped_table(path))
 
     def __len__(self) -> int:
         return len(self.ids_)
@@ -584,7 +589,8 @@ class RegisterIndex:
         index._set_register(art.tables["register"])
         # a memory-mapped register table (indexes saved since it was one) is opened again, not copied,
         # where the index is unpickled (a Dask worker): every process shares the file's pages
-        index._mapped = Path(directory) if "register.arrow" in art.manifest["files"] else None
+        mapped = art.manifest["files"].get("register.arrow")
+        index._mapped = (str(directory), mapped["sha256"]) if mapped else None
         index.char_vectorizer_ = _restore_vectorizer(_char_vectorizer, art.tables["char_vocabulary"],
                                                      art.arrays["char_idf"])
         index.word_vectorizer_ = _restore_vectorizer(_word_vectorizer, art.tables["word_vocabulary"],
