@@ -139,6 +139,7 @@ def main(argv=None) -> int:
                f"{len(truth) / wall:,.0f} records/s", work / "local.parquet", truth)
     if args.dask:
         import distributed
+        os.environ["PYTHONPATH"] = env["PYTHONPATH"]  # the workers import the command's titlematch
         with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                       dashboard_address=None) as cluster:
             wall, peak = command([*link, "--out", str(work / "dask.parquet"), "--engine", "dask",
