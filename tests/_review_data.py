@@ -99,6 +99,8 @@ class ReviewServer:
         if self.process.poll() is None:
             self.process.send_signal(signal.SIGKILL)
             self.process.wait(timeout=30)
+        if not self.process.stderr.closed:
+            self.stderr_text = self.process.stderr.read()  # what the command warned of
         for stream in (self.process.stdout, self.process.stderr):
             stream.close()
 

@@ -162,3 +162,21 @@ def test_safe_by_default_token_escaping_and_unknown_codes(review_files, browser,
     entries = read_journal(decisions).effective(("code",))
     assert [(e["title"], e["code"]) for e in entries] == [(XSS_KEY, "29-1141")]
     assert entries[0]["remark"] == "<b>see</b> <img src=x onerror=alert(3)>"
+
+
+def test_listening_beyond_this_machine_warns_and_the_default_does_not(review_files, tmp_path):
+    # Reference: the address the operating system reports the server bound to, and the page itself
+    # fetched through the loopback interface (0.0.0.0 listens on every interface, that one too).
+    outside = ReviewServer(review_files["coded"], review_files["dictionary"], tmp_path / "a.jsonl", "ann",
+                           "--host", "0.0.0.0")
+    try:
+        assert outside.base.startswith("http://0.0.0.0:")
+        port = outside.base.rsplit(":", 1)[1]
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/?token={outside.token}", timeout=30) as page:
+            assert page.status == 200
+    finally:
+        outside.kill()
+    assert "warning: listening on 0.0.0.0, not only on this machine" in outside.stderr_text
+    local = ReviewServer(review_files["coded"], review_files["dictionary"], tmp_path / "b.jsonl")
+    local.kill()
+    assert local.base.startswith("http://127.0.0.1:") and "warning" not in local.stderr_text
