@@ -234,17 +234,17 @@ def load_artefact(directory: str | os.PathLike, kind: str, arrow_tables=()) -> A
         if file_sha256(path) != info.get("sha256"):
             raise ArtefactError(f"{path}: checksum mismatch; the file was altered after it was saved")
         try:
-            if name.endswith(".parquet"):
-                arrow = name[: -len(".parquet")] in arrow_tables
-                table = pd.read_parquet(path, dtype_backend="pyarrow") if arrow else pd.read_parquet(path)
+            stem, suffix = os.path.splitext(name)
+            if suffix in (".parquet", ".arrow"):
+                if suffix == ".arrow":
+                    table = read_mapped_table(path)
+                elif stem in arrow_tables:
+                    table = pd.read_parquet(path, dtype_backend="pyarrow")
+                else:
+                    table = pd.read_parquet(path)
                 if "rows" in info and len(table) != info["rows"]:
                     raise ArtefactError(f"{path}: {len(table)} rows; the manifest says {info['rows']}")
-                tables[name[: -len(".parquet")]] = table
-            elif name.endswith(".arrow"):
-                table = read_mapped_table(path)
-                if "rows" in info and len(table) != info["rows"]:
-                    raise ArtefactError(f"{path}: {len(table)} rows; the manifest says {info['rows']}")
-                tables[name[: -len(".arrow")]] = table
+                tables[stem] = table
             elif name.endswith(".npy"):
                 array = np.load(path, allow_pickle=False)
                 if "shape" in info and list(array.shape) != info["shape"]:

@@ -3,7 +3,8 @@
 Python frees objects into its own pools and glibc's allocator keeps freed pages for the process;
 after letting go of something large (a register's partitions once the EM pass has read them) the
 process would still hold its peak. ``return_freed_memory`` collects cycles and, where the C
-library is glibc, asks it to give back the free pages at the top of each arena (``malloc_trim``).
+library is glibc, asks it to give back every whole free page of its heaps (``malloc_trim``), those
+below blocks still in use too. Pages held by Python's small-object pools are beyond its reach.
 """
 from __future__ import annotations
 
