@@ -65,13 +65,15 @@ def test_every_nonsense_title_carries_its_reason(coded_nonsense):
 
 
 def test_random_strings_are_flagged_unless_one_edit_from_a_word(coded_nonsense, small_demo):
-    # "yelp" is one edit from "help": it is corrected, so it has a dictionary word (and is still
-    # referred, by its confidence); every other random string has none
+    # "yelp" is one edit from "help" and "powt" from "post": misspellings of dictionary words, so not
+    # flagged (and still referred, by their confidence); every other random string is flagged
     corrector = TitleCoder.load(small_demo["dictionary"]).index_.corrector_
     random = coded_nonsense.iloc[:300]
     unflagged = random.loc[random["title_flag"] == "", "title"].tolist()
     assert len(unflagged) <= 6
-    assert all(corrector.correct_token(t) != t for t in unflagged), unflagged
+    assert all(corrector.near_known(t) for t in unflagged), unflagged
+    flagged = random.loc[random["title_flag"] != "", "title"].tolist()
+    assert not any(corrector.near_known(t) for t in flagged)
 
 
 def test_real_titles_of_the_new_year_pass_the_gate(small_demo_coded):

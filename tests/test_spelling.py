@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections import Counter
 
+import numpy as np
 import pandas as pd
 import pytest
 from hypothesis import given, settings, strategies as st
@@ -45,15 +46,46 @@ def test_misspellings_are_single_edits_of_real_words(onet_misspellings):
     assert again.equals(onet_misspellings)  # deterministic
 
 
+def _first_letter_kept(misspellings: pd.DataFrame) -> np.ndarray:
+    return np.array([a[:1] == b[:1] for a, b in zip(misspellings["misspelling"], misspellings["word"])])
+
+
 def test_precision_and_recall_on_onet_misspellings(onet_corrector, onet_misspellings):
+    # Single edits (Damerau 1964's four kinds) at any letter of O*NET-SOC 2019 title words.
     fixed = [onet_corrector.correct_token(w) for w in onet_misspellings["misspelling"]]
     made = sum(f != w for f, w in zip(fixed, onet_misspellings["misspelling"]))
     right = sum(f == w for f, w in zip(fixed, onet_misspellings["word"]))
     precision, recall = right / made, right / len(onet_misspellings)
-    assert precision >= 0.98
-    assert recall >= 0.85
+    assert precision >= 0.98   # measured 0.990
+    # An edit of the first letter is left alone by design (the module's notes: rare in real
+    # misspellings, and how real words turn into other real words); these edits, drawn here at any
+    # letter, are 14% of the sample. Recall on the others: 0.947 measured; on all of them 0.819.
+    kept = _first_letter_kept(onet_misspellings)
+    assert correction_scores(onet_corrector, onet_misspellings[kept])["recall"] >= 0.93
+    assert recall >= 0.78
     scores = correction_scores(onet_corrector, onet_misspellings)
     assert scores["precision"] == pytest.approx(precision) and scores["recall"] == pytest.approx(recall)
+
+
+def test_a_correction_keeps_the_first_letter(onet_corrector, onet_misspellings):
+    # Misspellings of the first letter (O*NET-SOC 2019 words, single edits): never "corrected" into
+    # a word of another first letter; without the rule the same corrector restores nearly all of them.
+    changed = onet_misspellings[~_first_letter_kept(onet_misspellings)]
+    assert len(changed) > 300
+    for wrong in changed["misspelling"]:
+        fixed = onet_corrector.correct_token(wrong)
+        assert fixed == wrong or fixed[0] == wrong[0], (wrong, fixed)
+    free = SpellingCorrector(keep_first_letter=False).fit(ONET_VOCABULARY)
+    assert correction_scores(free, changed)["recall"] >= 0.9  # measured 0.95
+    # real words one first letter apart stay as written (common practice: "tower" is not "power")
+    pairs = SpellingCorrector(use_lexicon=False).fit({"power": 50, "milk": 40, "aviation": 30, "captain": 20})
+    assert pairs.correct(["tower", "silk", "vacation", "pwoer"])[0] == ["tower", "silk", "vacation", "power"]
+    assert not pairs.allows("tower", "power") and pairs.allows("pwoer", "power")
+    # still a misspelling of a known word, for the gate (coding.gate): within the allowed edits
+    assert pairs.near_known("tower") and pairs.near_known("power") and pairs.near_known("pwoer")
+    assert not pairs.near_known("towzr") and not pairs.near_known("qzxv") and not pairs.near_known("mil")
+    free = SpellingCorrector(use_lexicon=False, keep_first_letter=False).fit({"power": 50, "milk": 40})
+    assert free.correct(["tower", "silk"])[0] == ["power", "milk"]
 
 
 def test_candidates_match_a_brute_force_search(onet_corrector, onet_misspellings):
@@ -86,8 +118,10 @@ def test_more_frequent_word_wins_at_equal_distance():
 
 
 def test_equally_likely_candidates_leave_the_word_alone():
-    corrector = SpellingCorrector(use_lexicon=False).fit({"tenders": 10, "benders": 12})
-    assert corrector.correct_token("enders") == "enders"
+    corrector = SpellingCorrector(use_lexicon=False).fit({"tenders": 10, "tinders": 12})
+    assert corrector.correct_token("tanders") == "tanders"
+    free = SpellingCorrector(use_lexicon=False, keep_first_letter=False).fit({"tenders": 10, "benders": 12})
+    assert free.correct_token("enders") == "enders"
 
 
 def test_known_words_keys_numbers_and_short_words_are_untouched():
@@ -133,6 +167,8 @@ def test_bad_parameters_and_unfitted_use():
         SpellingCorrector(max_distance=0).fit({"cook": 1})
     with pytest.raises(ValueError, match="min_length"):
         SpellingCorrector(min_length=0).fit({"cook": 1})
+    with pytest.raises(ValueError, match="keep_first_letter"):
+        SpellingCorrector(keep_first_letter="yes").fit({"cook": 1})
     with pytest.raises(ValueError, match="not fitted"):
         SpellingCorrector().correct_token("cook")
     with pytest.raises(TypeError, match="int"):
@@ -160,5 +196,6 @@ def test_any_token_gives_itself_or_a_vocabulary_word(token):
     assert fixed == token or (fixed in corrector.vocabulary_ and len(fixed) >= corrector.min_length)
     if fixed != token:
         assert DamerauLevenshtein.distance(token.lower(), fixed) <= corrector.max_distance
+        assert fixed[0] == token.lower()[0]
         assert corrector.correct_token(fixed) == fixed
 

@@ -38,7 +38,6 @@ def _restore_tfidf(make, vocabulary: pd.DataFrame, idf: np.ndarray) -> TfidfVect
     return vec
 
 
-MIN_WORD_COUNT = 2      # a word seen once may itself be a misspelling: it is not trusted as correct
 RARE_WORD_COUNT = 20    # below this, a word one edit from a far more frequent word is a misspelling
 MISSPELLING_RATIO = 50  # ... when that word is this many times more frequent
 
@@ -47,19 +46,22 @@ def _corrector(dictionary: TitleDictionary) -> SpellingCorrector:
     """The spelling corrector over the dictionary's own words.
 
     Past records hold misspellings too, and a misspelling repeated a few times must not become a
-    "known word" that is never corrected. So words seen once, and rare words one edit away from a
-    word at least 50 times as frequent, are left out of what counts as correct (the frequency-ratio
-    rule of symmetric-delete spelling correction). The exact title is still searched as written,
-    so a rare but real word loses nothing.
+    "known word" that is never corrected. So rare words one edit away from a word at least 50 times
+    as frequent (and that the corrector would turn into it: same first letter) are left out of what
+    counts as correct (the frequency-ratio rule of symmetric-delete spelling correction). Every other
+    word counts, even one seen once: in real titles a word seen once is mostly a real word, and
+    correcting it to a neighbour ("chaplain" to "captain") costs more than leaving a typo, which the
+    character search still finds. On ESCO's real titles, trusting words seen once (together with
+    keeping the first letter) rights 20 more new records of 5,263 (benchmarks/RESULTS.md).
     """
     vocabulary = dictionary.vocabulary
-    vocabulary = vocabulary[vocabulary >= MIN_WORD_COUNT]
+    vocabulary = vocabulary[vocabulary >= 1]
     frequent = SpellingCorrector(max_distance=1).fit(vocabulary[vocabulary >= RARE_WORD_COUNT])
     suspects = []
     for word, count in vocabulary[vocabulary < RARE_WORD_COUNT].items():
         if len(word) < frequent.min_length:
             continue
-        near = [c for d, c, w in frequent.nearest(word) if d == 1 and w != word]
+        near = [c for d, c, w in frequent.nearest(word) if d == 1 and w != word and frequent.allows(word, w)]
         if near and near[0] >= MISSPELLING_RATIO * count:
             suspects.append(word)
     return SpellingCorrector().fit(vocabulary.drop(suspects))

@@ -233,7 +233,7 @@ class TitleCoder(BaseEstimator):
         text = titles.fillna("").astype(str).to_numpy(dtype=object)
         distinct = pd.DataFrame({"t": text, "k": keys, "c": corrected}).drop_duplicates()
         found = title_flags(distinct["t"], distinct["k"], distinct["c"], known_words=self.known_words_,
-                            known_scripts=self.known_scripts_)
+                            known_scripts=self.known_scripts_, near=self.index_.corrector_.near_known)
         lookup = pd.MultiIndex.from_frame(distinct)
         at = lookup.get_indexer(pd.MultiIndex.from_arrays([text, keys, corrected]))
         return found[at] if len(text) else np.array([], dtype=object)

@@ -9,7 +9,9 @@ titles has never seen them and can be confidently wrong about them:
   "refused", "don't know", "see above", "retired" ...);
 * a title with letters of a script none of the dictionary's source titles used (the
   normalizer transliterates it, and the transliteration lands near unrelated titles);
-* a title none of whose words, as written or as corrected, is a dictionary or lexicon word.
+* a title none of whose words, as written or as corrected, is a dictionary or lexicon word, or
+  a misspelling of one (``near``: within the edits the corrector allows, whatever the first letter,
+  so a typo the corrector leaves alone is no reason to refer).
 
 Where the classification itself has a code for insufficient information (its official title
 is a ``residual-code-title`` phrase of the same lexicon), that code is offered as a candidate.
@@ -84,12 +86,13 @@ def residual_codes(catalogue: pd.DataFrame) -> list[str]:
     return sorted(catalogue.loc[folded.map(lambda t: any(p in t for p in phrases)), "code"].astype(str))
 
 
-def title_flags(titles, keys, corrected, *, known_words, known_scripts) -> np.ndarray:
+def title_flags(titles, keys, corrected, *, known_words, known_scripts, near=None) -> np.ndarray:
     """One flag per title: ``""`` or the reason it must go to a person.
 
     ``titles`` as written, ``keys`` normalized, ``corrected`` after spelling correction (aligned);
     ``known_words`` the words of the dictionary and the lexicons; ``known_scripts`` the scripts of
-    the dictionary's source titles.
+    the dictionary's source titles; ``near`` (optional) tells whether a word is a misspelling of a
+    known one (``SpellingCorrector.near_known``), asked only of titles with no known word.
     """
     flags = []
     known_scripts = set(known_scripts) | {LATIN}
@@ -102,7 +105,8 @@ def title_flags(titles, keys, corrected, *, known_words, known_scripts) -> np.nd
         unseen = scripts_of(title) - known_scripts
         if unseen:
             flags.append(f"script not in the dictionary: {', '.join(sorted(unseen))}")
-        elif key and not any(w in known_words for w in set(key.split()) | set(fixed.split()) if w.isalpha()):
+        elif key and not any(w in known_words for w in set(key.split()) | set(fixed.split()) if w.isalpha()) \
+                and not (near is not None and any(near(w) for w in key.split() if w.isalpha())):
             flags.append("no dictionary word")
         else:
             flags.append("")

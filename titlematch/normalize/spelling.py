@@ -7,7 +7,12 @@ are candidates, and the true Damerau–Levenshtein distance (rapidfuzz) decides.
 prefers the smallest distance, then the more frequent word, and abstains when two candidates
 are about equally likely: a wrong "correction" costs more than a missed one. The distance a
 correction may span grows with the word (:meth:`SpellingCorrector.allowed_distance`): no
-two-edit corrections of short words, which would turn random letters into real words.
+two-edit corrections of short words, which would turn random letters into real words. And a
+correction keeps the word's first letter (:meth:`SpellingCorrector.allows`): the first letter of a
+misspelling is rarely wrong (Pollock and Zamora, CACM 1984, found it wrong in about 7% of the
+misspellings of their corpus: from memory), while a new first letter is how one real word turns into
+another ("tower" and "power", "silk" and "milk", "vacation" and "aviation"). A title word the
+dictionary has never seen is more often a real word than a typo once the titles are real.
 
 Known words, lexicon keys (abbreviations such as "mgr", Spanish titles, qualifier words),
 numbers and words shorter than ``min_length`` are never changed.
@@ -76,6 +81,8 @@ class SpellingCorrector:
     use_lexicon : bool, default True
         Also know every word the title lexicons write (so "certified" from "cna" is known) and
         never touch a lexicon key ("mgr", "enfermera", "nights").
+    keep_first_letter : bool, default True
+        Only correct to words with the same first letter (see the module's notes).
 
     Attributes
     ----------
@@ -89,10 +96,12 @@ class SpellingCorrector:
     (['nursing', 'assistants', 'mgr'], [('nursnig', 'nursing'), ('asistants', 'assistants')])
     """
 
-    def __init__(self, max_distance: int = 2, min_length: int = 4, use_lexicon: bool = True):
+    def __init__(self, max_distance: int = 2, min_length: int = 4, use_lexicon: bool = True,
+                 keep_first_letter: bool = True):
         self.max_distance = max_distance
         self.min_length = min_length
         self.use_lexicon = use_lexicon
+        self.keep_first_letter = keep_first_letter
 
     # ------------------------------------------------------------------ fitting
     def fit(self, vocabulary) -> "SpellingCorrector":
@@ -129,6 +138,8 @@ class SpellingCorrector:
             raise ValueError(f"max_distance must be an integer from 1 to 3, got {self.max_distance!r}")
         if not isinstance(self.min_length, (int, np.integer)) or self.min_length < 1:
             raise ValueError(f"min_length must be a positive integer, got {self.min_length!r}")
+        if not isinstance(self.keep_first_letter, (bool, np.bool_)):
+            raise ValueError(f"keep_first_letter must be True or False, got {self.keep_first_letter!r}")
 
     def _build_index(self, targets: list[str]) -> None:
         # Hashes of the deletes in one sorted int64 array (ids beside it) instead of a dict of
@@ -211,10 +222,31 @@ class SpellingCorrector:
         limit = 0 if length < SHORT_WORD else 1 if length < LONG_WORD else 2
         return min(limit, self.max_distance)
 
+    def allows(self, word: str, candidate: str) -> bool:
+        """Whether ``candidate`` may replace ``word`` at all, before distances and frequencies: with
+        ``keep_first_letter``, only when both begin with the same letter."""
+        return not self.keep_first_letter or word[:1] == candidate[:1]
+
+    def near_known(self, token: str) -> bool:
+        """Whether ``token`` is known, or a vocabulary word lies within the edits its length allows,
+        whatever the first letters: a misspelling of some word, even where ``correct_token`` would
+        not choose one (a first letter changed, two readings alike)."""
+        self._check_fitted()
+        word = token.lower()
+        if self.known(word):
+            return True
+        if len(word) < self.min_length or not word.isascii() or not word.isalpha():
+            return False
+        limit = self.allowed_distance(len(word))
+        return any(DamerauLevenshtein.distance(word, w, score_cutoff=limit) <= limit
+                   for w in self._candidate_words(word))
+
     def _lookup(self, word: str) -> str:
         limit = self.allowed_distance(len(word))
         best, scored = limit + 1, []
         for candidate in self._candidate_words(word):
+            if not self.allows(word, candidate):
+                continue
             distance = DamerauLevenshtein.distance(word, candidate, score_cutoff=limit)
             if distance <= limit:
                 scored.append((distance, -self.vocabulary_[candidate], candidate))
@@ -274,7 +306,7 @@ class SpellingCorrector:
 
     def get_params(self) -> dict:
         return {"max_distance": int(self.max_distance), "min_length": int(self.min_length),
-                "use_lexicon": bool(self.use_lexicon)}
+                "use_lexicon": bool(self.use_lexicon), "keep_first_letter": bool(self.keep_first_letter)}
 
 
 def _as_counts(vocabulary) -> dict[str, int]:
