@@ -162,3 +162,30 @@ def test_code_profile_features_match_a_count_over_the_dictionary():
     assert driver["head_share"].iloc[0] > 0.3 and driver["word_cover"].iloc[0] == pytest.approx(1.0, abs=1e-6)
     deputy = feats[(feats["record"] == 5) & (feats["code"] == "11-1011")]  # "chief executives" is its head phrase
     assert deputy["phrase_share"].iloc[0] > 0.3
+
+
+def test_the_neighbour_search_is_the_same_on_one_thread_or_several(monkeypatch):
+    # Past records: O*NET-SOC 2019 titles (O*NET database, CC BY 4.0). The search is cut into slices
+    # run on threads; each row's neighbours must not depend on the slice or the thread count, and they
+    # must be the k best cosines of a dense reference product (numpy), ties aside.
+    import titlematch.coding.candidates as candidates
+
+    past = pd.concat([_teachers(), SOC.assign(context="")], ignore_index=True)
+    index = TitleCoder().fit(past, past["code"], classification=SOC).index_
+    queries = list(SOC["title"].str.lower().str.replace(",", "")) * 3
+    chars, words = index.query_rows(queries)
+    monkeypatch.setattr(candidates, "CHUNK", 97)  # many slices, of unequal sizes
+    found = {}
+    for cores in (1, 2, 4):
+        monkeypatch.setattr(candidates, "available_cores", lambda cores=cores: cores)
+        monkeypatch.setattr(candidates, "SEARCH_THREADS", cores)
+        found[cores] = [index.neighbours(rows, source) for rows, source in ((chars, "char"), (words, "word"))]
+    for cores in (2, 4):
+        for a, b in zip(found[1], found[cores]):
+            pd.testing.assert_frame_equal(a, b)
+    dense = (chars @ index.char_matrix_).toarray()
+    char_hits = found[1][0]
+    for q in (0, 500, 2500):
+        mine = np.sort(char_hits.loc[char_hits["query"] == q, "sim"].to_numpy())[::-1]
+        best = np.sort(dense[q][dense[q] > 0.05])[::-1][:index.n_neighbours]
+        np.testing.assert_allclose(mine, best, rtol=1e-6)

@@ -10,6 +10,7 @@ sources are aggregated per code, since many dictionary entries share one.
 """
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from typing import NamedTuple
 
 import numpy as np
@@ -22,8 +23,10 @@ from .dictionary import TitleDictionary
 from .linear import LinearTitleModel, head_phrase, head_word
 from ..normalize.ngrams import char_wb_counts, tfidf_weights
 from ..normalize.spelling import SpellingCorrector
+from ..runtime.pool import available_cores, in_worker, slices
 
 CHUNK = 2048
+SEARCH_THREADS = 2  # threads of the neighbour search (see TitleIndex.neighbours)
 def _char_vectorizer(**kw) -> TfidfVectorizer:
     return TfidfVectorizer(analyzer="char_wb", ngram_range=(3, 3), sublinear_tf=True, dtype=np.float32, **kw)
 
@@ -273,13 +276,25 @@ class TitleIndex:
 
     def neighbours(self, rows: sp.csr_matrix, source: str) -> pd.DataFrame:
         """Top dictionary keys per query row (``query_rows``) by ``source`` ("char" or "word") cosine:
-        query, key, sim."""
+        query, key, sim.
+
+        The rows are searched in slices of at most ``CHUNK`` on up to ``SEARCH_THREADS`` threads: the
+        sparse product and the partial sorts run without the interpreter lock, and each row's
+        neighbours do not depend on the slice it is in, so the result is the same on any number."""
         matrix = self.char_matrix_ if source == "char" else self.word_matrix_
-        out = []
-        for start in range(0, rows.shape[0], CHUNK):
-            q = rows[start:start + CHUNK]
-            at, cols, vals = top_k_sparse(q @ matrix, self.n_neighbours, min_score=0.05)
-            out.append(pd.DataFrame({"query": at + start, "key": cols, "sim": vals.astype(np.float64)}))
+        n = rows.shape[0]
+        threads = 1 if in_worker() else min(SEARCH_THREADS, available_cores())
+
+        def search(part: slice) -> pd.DataFrame:
+            at, cols, vals = top_k_sparse(rows[part] @ matrix, self.n_neighbours, min_score=0.05)
+            return pd.DataFrame({"query": at + part.start, "key": cols, "sim": vals.astype(np.float64)})
+
+        parts = slices(n, max(-(-n // CHUNK), threads))
+        if threads > 1 and len(parts) > 1:
+            with ThreadPoolExecutor(threads) as executor:
+                out = list(executor.map(search, parts))
+        else:
+            out = [search(p) for p in parts]
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
 
     def classify(self, queries, contexts=None, pairs: tuple[np.ndarray, np.ndarray] | None = None):

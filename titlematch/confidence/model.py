@@ -14,6 +14,7 @@ knots), so a saved model loads without executing code.
 from __future__ import annotations
 
 import os
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -30,7 +31,7 @@ from threadpoolctl import threadpool_limits
 
 from ..io.artefact import ArtefactError, load_artefact, save_artefact
 from ..coding.features import FEATURES
-from ..runtime.pool import map_slices
+from ..runtime.pool import available_cores, in_worker, map_slices, slices
 from .fellegi_sunter import CLIP, FellegiSunterModel
 from .routing import ACCEPT_NOTHING, route
 
@@ -129,9 +130,25 @@ def _export_trees(model: HistGradientBoostingClassifier) -> dict[str, np.ndarray
     return out
 
 
+TREE_THREADS = 2          # row slices evaluated at once (numpy's indexing runs without the interpreter lock)
+TREE_THREAD_ROWS = 20_000  # rows below which one thread is quicker
+
+
 def _evaluate_trees(a: dict[str, np.ndarray], X: np.ndarray) -> np.ndarray:
-    """Sum of leaf values over all trees plus the baseline (the model's raw decision value)."""
+    """Sum of leaf values over all trees plus the baseline (the model's raw decision value).
+
+    Large inputs are cut into row slices evaluated on threads; each row's sum is the same whatever
+    slice it is in, so the result does not depend on the number of threads."""
     X = np.asarray(X, dtype=np.float64)
+    threads = 1 if in_worker() else min(TREE_THREADS, available_cores())
+    if threads > 1 and len(X) >= TREE_THREAD_ROWS:
+        with ThreadPoolExecutor(threads) as executor:
+            return np.concatenate(list(executor.map(lambda part: _evaluate_trees_rows(a, X[part]),
+                                                    slices(len(X), threads))))
+    return _evaluate_trees_rows(a, X)
+
+
+def _evaluate_trees_rows(a: dict[str, np.ndarray], X: np.ndarray) -> np.ndarray:
     total = np.full(len(X), a["tree_baseline"][0])
     rows = np.arange(len(X))
     for t in range(len(a["tree_offsets"]) - 1):
