@@ -208,6 +208,29 @@ def test_xlsx_rows_are_numbered_below_the_header(tmp_path):
     assert pd.concat([c.frame for c in chunks])[ROW_COLUMN].tolist() == [2, 3, 4]
 
 
+def test_xlsx_formula_without_a_saved_value_is_set_aside_not_read_as_empty(tmp_path):
+    # Office Open XML (ECMA-376) keeps a formula (<f>) and its last computed value (<v>) apart; a file
+    # written by a library holds the formula alone, which would read as an empty cell. Found by
+    # hypothesis in tests/test_roundtrip_property.py ("=0" typed as a note).
+    from openpyxl import Workbook
+    book = Workbook()
+    sheet = book.active
+    sheet.append(["id", "title", "note"])
+    sheet.append(["1", "clerk", "=0"])          # a formula to the file, with no value saved
+    sheet.append(["2", "cook", "fine"])
+    sheet.append(["3", "=A3&\"x\"", ""])
+    sheet.append(["4", "driver", "'=0"])      # an apostrophe is plain text
+    book.save(tmp_path / "t.xlsx")
+    rejects = Rejects()
+    frame = tio.read_table(tmp_path / "t.xlsx", rejects=rejects)
+    assert frame[ROW_COLUMN].tolist() == [3, 5]
+    assert frame["title"].tolist() == ["cook", "driver"] and frame["note"].tolist() == ["fine", "'=0"]
+    table = rejects.frame()
+    assert table["row"].tolist() == [2, 4] and table["column"].tolist() == ["note", "title"]
+    assert table["value"].tolist() == ["=0", '=A3&"x"']
+    assert table["reason"].str.startswith("formula with no saved value").all()
+
+
 # -- properties (hypothesis) -----------------------------------------------------------------------
 plain_cell = st.text(alphabet=st.characters(blacklist_characters=',"\r\n\x00', blacklist_categories=("Cs",)),
                      max_size=8)

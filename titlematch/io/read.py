@@ -277,6 +277,8 @@ class TableReader:
         frame.columns = self.columns
         self._sheet = frame.fillna("").astype(str)
         self.total_rows = len(frame)
+        self._unsaved_formulas = _unsaved_formulas(self.path, self._sheet)
+
 
     # -- reading --------------------------------------------------------------------------------
     def chunks(self, start: ReadPosition | None = None, first_index: int = 0) -> Iterator[TableChunk]:
@@ -359,8 +361,40 @@ class TableReader:
 
     def _chunks_xlsx(self, start: ReadPosition, index: int) -> Iterator[TableChunk]:
         for done in range(start.records, len(self._sheet), self.chunk_rows):
-            yield self._table_chunk(index, self._sheet.iloc[done:done + self.chunk_rows], done)
+            chunk = self._table_chunk(index, self._sheet.iloc[done:done + self.chunk_rows], done)
+            if self._unsaved_formulas:  # a formula whose value was never saved: its cell would read empty
+                rows = chunk.frame[ROW_COLUMN].to_numpy()
+                bad = np.isin(rows, list(self._unsaved_formulas))
+                for row in rows[bad]:
+                    column, formula = self._unsaved_formulas[int(row)]
+                    chunk.rejects.add(self.path, int(row), column, "formula with no saved value (the file was "
+                                      "not saved by a spreadsheet program, which stores each formula's result)",
+                                      formula)
+                chunk.frame = chunk.frame[~bad].reset_index(drop=True)
+            yield chunk
             index += 1
+
+def _unsaved_formulas(path: Path, sheet: pd.DataFrame) -> dict[int, tuple[str, str]]:
+    """Spreadsheet rows holding a formula with no saved result, as ``{row: (column, formula)}``.
+
+    A spreadsheet program saves each formula's result beside it, and that result is what is read.
+    A file written by a program that does not (a script, a library) holds the formula alone: its cell
+    would read as empty, changing the value, so the row is set aside instead."""
+    from openpyxl import load_workbook
+
+    book = load_workbook(path, read_only=True, data_only=False)
+    try:
+        found: dict[int, tuple[str, str]] = {}
+        width = len(sheet.columns)
+        for row, cells in enumerate(book.worksheets[0].iter_rows(min_row=2, max_col=width), start=2):
+            for col, cell in enumerate(cells):
+                if getattr(cell, "data_type", "") == "f" and row - 2 < len(sheet) \
+                        and sheet.iat[row - 2, col] == "" and row not in found:
+                    found[row] = (sheet.columns[col], str(cell.value))
+        return found
+    finally:
+        book.close()
+
 
 def iter_table_chunks(path: str | os.PathLike, chunk_rows: int = 50_000, *, required: Sequence[str] = (),
                       encoding: str | None = None, rejects: Rejects | None = None,
