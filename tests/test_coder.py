@@ -169,6 +169,7 @@ def test_the_neighbour_search_is_the_same_on_one_thread_or_several(monkeypatch):
     # run on threads; each row's neighbours must not depend on the slice or the thread count, and they
     # must be the k best cosines of a dense reference product (numpy), ties aside.
     import titlematch.coding.candidates as candidates
+    import titlematch.runtime.pool as pool
 
     past = pd.concat([_teachers(), SOC.assign(context="")], ignore_index=True)
     index = TitleCoder().fit(past, past["code"], classification=SOC).index_
@@ -177,7 +178,7 @@ def test_the_neighbour_search_is_the_same_on_one_thread_or_several(monkeypatch):
     monkeypatch.setattr(candidates, "CHUNK", 97)  # many slices, of unequal sizes
     found = {}
     for cores in (1, 2, 4):
-        monkeypatch.setattr(candidates, "available_cores", lambda cores=cores: cores)
+        monkeypatch.setattr(pool, "available_cores", lambda cores=cores: cores)
         monkeypatch.setattr(candidates, "SEARCH_THREADS", cores)
         found[cores] = [index.neighbours(rows, source) for rows, source in ((chars, "char"), (words, "word"))]
     for cores in (2, 4):

@@ -39,13 +39,14 @@ def test_trees_give_the_same_scores_on_row_slices_and_threads(monkeypatch):
     # Large inputs are evaluated in row slices on threads: the scores must be the single-thread ones
     # exactly, and still scikit-learn's decision_function (reference library).
     import titlematch.confidence.model as model_module
+    import titlematch.runtime.pool as pool
     X, y = _synthetic()
     X.iloc[::13, 2] = np.nan
     model = HistGradientBoostingClassifier(max_iter=20, random_state=0).fit(X.to_numpy(), y)
     arrays = _export_trees(model)
-    monkeypatch.setattr(model_module, "available_cores", lambda: 1)
+    monkeypatch.setattr(pool, "available_cores", lambda: 1)
     one = _evaluate_trees(arrays, X.to_numpy())
-    monkeypatch.setattr(model_module, "available_cores", lambda: 2)
+    monkeypatch.setattr(pool, "available_cores", lambda: 2)
     monkeypatch.setattr(model_module, "TREE_THREAD_ROWS", 10)
     two = _evaluate_trees(arrays, X.to_numpy())
     np.testing.assert_array_equal(one, two)

@@ -70,12 +70,13 @@ def test_passes_shrink_as_the_training_units_grow():
 def test_the_same_model_on_one_thread_or_several(monkeypatch, units_per_code):
     # each SGD step is cut into fixed slices: the thread count must not change a single weight
     import titlematch.coding.linear as linear
+    import titlematch.runtime.pool as pool
     monkeypatch.setattr(linear, "FULL_GRADIENT_UNITS", units_per_code)
     codes, keys, y = _craft_titles()
     past = keys["past"]
-    monkeypatch.setattr(linear, "available_cores", lambda: 1)
+    monkeypatch.setattr(pool, "available_cores", lambda: 1)
     one = LinearTitleModel().fit(past, [""] * len(past), y["past"], len(codes))
-    monkeypatch.setattr(linear, "available_cores", lambda: 4)
+    monkeypatch.setattr(pool, "available_cores", lambda: 4)
     many = LinearTitleModel().fit(past, [""] * len(past), y["past"], len(codes))
     for name, array in one.arrays().items():
         np.testing.assert_array_equal(array, many.arrays()[name], err_msg=name)

@@ -10,7 +10,6 @@ sources are aggregated per code, since many dictionary entries share one.
 """
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
 from typing import NamedTuple
 
 import numpy as np
@@ -23,7 +22,7 @@ from .dictionary import TitleDictionary
 from .linear import LinearTitleModel, head_phrase, head_word
 from ..normalize.ngrams import char_wb_counts, tfidf_weights
 from ..normalize.spelling import SpellingCorrector
-from ..runtime.pool import available_cores, in_worker, slices
+from ..runtime.pool import map_threads, slices, thread_count
 
 CHUNK = 2048
 SEARCH_THREADS = 2  # threads of the neighbour search (see TitleIndex.neighbours)
@@ -58,7 +57,7 @@ def _corrector(dictionary: TitleDictionary) -> SpellingCorrector:
     keeping the first letter) rights 20 more new records of 5,263 (benchmarks/RESULTS.md).
     """
     vocabulary = dictionary.vocabulary
-    vocabulary = vocabulary[vocabulary >= 1]
+    vocabulary = vocabulary[vocabulary > 0]
     frequent = SpellingCorrector(max_distance=1).fit(vocabulary[vocabulary >= RARE_WORD_COUNT])
     suspects = []
     for word, count in vocabulary[vocabulary < RARE_WORD_COUNT].items():
@@ -283,18 +282,12 @@ class TitleIndex:
         neighbours do not depend on the slice it is in, so the result is the same on any number."""
         matrix = self.char_matrix_ if source == "char" else self.word_matrix_
         n = rows.shape[0]
-        threads = 1 if in_worker() else min(SEARCH_THREADS, available_cores())
 
         def search(part: slice) -> pd.DataFrame:
             at, cols, vals = top_k_sparse(rows[part] @ matrix, self.n_neighbours, min_score=0.05)
             return pd.DataFrame({"query": at + part.start, "key": cols, "sim": vals.astype(np.float64)})
 
-        parts = slices(n, max(-(-n // CHUNK), threads))
-        if threads > 1 and len(parts) > 1:
-            with ThreadPoolExecutor(threads) as executor:
-                out = list(executor.map(search, parts))
-        else:
-            out = [search(p) for p in parts]
+        out = map_threads(search, slices(n, max(-(-n // CHUNK), thread_count(SEARCH_THREADS))), SEARCH_THREADS)
         return pd.concat(out, ignore_index=True) if out else pd.DataFrame({"query": [], "key": [], "sim": []})
 
     def classify(self, queries, contexts=None, pairs: tuple[np.ndarray, np.ndarray] | None = None):

@@ -31,7 +31,7 @@ from sklearn.preprocessing import normalize as l2_normalize
 
 from ..io.artefact import csr_arrays, csr_from
 from ..normalize.ngrams import char_wb_counts
-from ..runtime.pool import available_cores, in_worker, slices
+from ..runtime.pool import slices, thread_count
 
 HASH_FEATURES = 2 ** 20
 CENTROID_TEMPERATURE = 20.0  # turns centroid cosines into a sharp softmax over codes
@@ -204,7 +204,7 @@ class LinearTitleModel:
             batches.append((rows, cols, row_parts, col_parts, w[rows], y[rows]))
         lr, alpha = np.float32(self.learning_rate), np.float32(self.alpha)
         k = self.gradient_codes(len(y), n_classes)
-        threads = 1 if in_worker() else min(SGD_PARTS, available_cores())
+        threads = thread_count(SGD_PARTS)
         with ThreadPoolExecutor(threads) as executor:
             def run(f, parts):
                 return list(executor.map(f, parts)) if threads > 1 else [f(p) for p in parts]

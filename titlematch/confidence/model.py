@@ -14,7 +14,6 @@ knots), so a saved model loads without executing code.
 from __future__ import annotations
 
 import os
-from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -31,7 +30,7 @@ from threadpoolctl import threadpool_limits
 
 from ..io.artefact import ArtefactError, load_artefact, save_artefact
 from ..coding.features import FEATURES
-from ..runtime.pool import available_cores, in_worker, map_slices, slices
+from ..runtime.pool import map_slices, map_threads, slices, thread_count
 from .fellegi_sunter import CLIP, FellegiSunterModel
 from .routing import ACCEPT_NOTHING, route
 
@@ -140,12 +139,10 @@ def _evaluate_trees(a: dict[str, np.ndarray], X: np.ndarray) -> np.ndarray:
     Large inputs are cut into row slices evaluated on threads; each row's sum is the same whatever
     slice it is in, so the result does not depend on the number of threads."""
     X = np.asarray(X, dtype=np.float64)
-    threads = 1 if in_worker() else min(TREE_THREADS, available_cores())
-    if threads > 1 and len(X) >= TREE_THREAD_ROWS:
-        with ThreadPoolExecutor(threads) as executor:
-            return np.concatenate(list(executor.map(lambda part: _evaluate_trees_rows(a, X[part]),
-                                                    slices(len(X), threads))))
-    return _evaluate_trees_rows(a, X)
+    if len(X) < TREE_THREAD_ROWS:
+        return _evaluate_trees_rows(a, X)
+    parts = slices(len(X), thread_count(TREE_THREADS))
+    return np.concatenate(map_threads(lambda part: _evaluate_trees_rows(a, X[part]), parts, TREE_THREADS))
 
 
 def _evaluate_trees_rows(a: dict[str, np.ndarray], X: np.ndarray) -> np.ndarray:

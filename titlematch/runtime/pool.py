@@ -17,6 +17,7 @@ Example
 from __future__ import annotations
 
 import multiprocessing
+from concurrent.futures import ThreadPoolExecutor
 import os
 from collections.abc import Callable, Sequence
 
@@ -56,6 +57,23 @@ def _run(k: int):
     _IN_WORKER = True
     func, items = _JOB
     return func(items[k])
+
+
+def thread_count(limit: int) -> int:
+    """Threads for work that runs without the interpreter lock (scipy's sparse products, numpy's
+    sorts and indexing): up to ``limit`` and the cores available, one inside a ``map_slices`` worker,
+    whose siblings already use the other cores."""
+    return 1 if _IN_WORKER else max(1, min(limit, available_cores()))
+
+
+def map_threads(func: Callable, items: Sequence, limit: int) -> list:
+    """``[func(item) for item in items]`` on up to ``thread_count(limit)`` threads, in order. For
+    work whose result per item does not depend on the thread that runs it."""
+    threads = thread_count(limit)
+    if threads <= 1 or len(items) <= 1:
+        return [func(item) for item in items]
+    with ThreadPoolExecutor(threads) as executor:
+        return list(executor.map(func, items))
 
 
 def map_slices(func: Callable, items: Sequence, workers: int | None = -1) -> list:
