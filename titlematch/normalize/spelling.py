@@ -197,12 +197,15 @@ class SpellingCorrector:
         for loops over many words (a dictionary build checks every rare word)."""
         self._check_fitted()
         word = token.lower()
-        rows = []
-        for w in self._candidate_words(word):
-            d = DamerauLevenshtein.distance(word, w, score_cutoff=self.max_distance)
-            if d <= self.max_distance:
-                rows.append((d, -self.vocabulary_[w], w))
+        rows = [(d, -self.vocabulary_[w], w) for d, w in self._within(word, self.max_distance)]
         return [(d, -c, w) for d, c, w in sorted(rows)]
+
+    def _within(self, word: str, limit: int):
+        """``(distance, vocabulary word)`` for each word at most ``limit`` edits from ``word``."""
+        for candidate in self._candidate_words(word):
+            distance = DamerauLevenshtein.distance(word, candidate, score_cutoff=limit)
+            if distance <= limit:
+                yield distance, candidate
 
     def _candidate_words(self, word: str) -> list[str]:
         deletes = _deletes(word[:PREFIX_LENGTH], self.max_distance)
@@ -237,20 +240,13 @@ class SpellingCorrector:
             return True
         if len(word) < self.min_length or not word.isascii() or not word.isalpha():
             return False
-        limit = self.allowed_distance(len(word))
-        return any(DamerauLevenshtein.distance(word, w, score_cutoff=limit) <= limit
-                   for w in self._candidate_words(word))
+        return next(self._within(word, self.allowed_distance(len(word))), None) is not None
 
     def _lookup(self, word: str) -> str:
-        limit = self.allowed_distance(len(word))
-        best, scored = limit + 1, []
-        for candidate in self._candidate_words(word):
-            if not self.allows(word, candidate):
-                continue
-            distance = DamerauLevenshtein.distance(word, candidate, score_cutoff=limit)
-            if distance <= limit:
-                scored.append((distance, -self.vocabulary_[candidate], candidate))
-                best = min(best, distance)
+        scored = [(distance, -self.vocabulary_[candidate], candidate)
+                  for distance, candidate in self._within(word, self.allowed_distance(len(word)))
+                  if self.allows(word, candidate)]
+        best = min((s[0] for s in scored), default=None)
         top = sorted(s for s in scored if s[0] == best)
         if not top:
             return word
