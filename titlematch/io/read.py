@@ -279,7 +279,6 @@ class TableReader:
         self.total_rows = len(frame)
         self._unsaved_formulas = _unsaved_formulas(self.path, self._sheet)
 
-
     # -- reading --------------------------------------------------------------------------------
     def chunks(self, start: ReadPosition | None = None, first_index: int = 0) -> Iterator[TableChunk]:
         """Yield :class:`TableChunk` objects, from the beginning or from ``start`` (an earlier chunk's ``end``)."""
@@ -374,23 +373,31 @@ class TableReader:
             yield chunk
             index += 1
 
+
 def _unsaved_formulas(path: Path, sheet: pd.DataFrame) -> dict[int, tuple[str, str]]:
     """Spreadsheet rows holding a formula with no saved result, as ``{row: (column, formula)}``.
 
     A spreadsheet program saves each formula's result beside it, and that result is what is read.
     A file written by a program that does not (a script, a library) holds the formula alone: its cell
-    would read as empty, changing the value, so the row is set aside instead."""
+    would read as empty, changing the value, so the row is set aside instead. Only rows with an
+    empty cell can hold one, so the sheet is read a second time (formulas, not values) only then,
+    and only those rows."""
+    empty = (sheet.to_numpy(dtype=object) == "")
+    rows = np.flatnonzero(empty.any(axis=1))
+    if not len(rows):
+        return {}
     from openpyxl import load_workbook
 
     book = load_workbook(path, read_only=True, data_only=False)
     try:
         found: dict[int, tuple[str, str]] = {}
-        width = len(sheet.columns)
-        for row, cells in enumerate(book.worksheets[0].iter_rows(min_row=2, max_col=width), start=2):
+        first, last = int(rows[0]) + 2, int(rows[-1]) + 2
+        cells_of = book.worksheets[0].iter_rows(min_row=first, max_row=last, max_col=len(sheet.columns))
+        for row, cells in enumerate(cells_of, start=first):
             for col, cell in enumerate(cells):
-                if getattr(cell, "data_type", "") == "f" and row - 2 < len(sheet) \
-                        and sheet.iat[row - 2, col] == "" and row not in found:
+                if empty[row - 2, col] and getattr(cell, "data_type", "") == "f":
                     found[row] = (sheet.columns[col], str(cell.value))
+                    break
         return found
     finally:
         book.close()
